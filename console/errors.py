@@ -1,0 +1,32 @@
+"""One error type per layer; the CLI turns any of them into one line on stderr and its exit code."""
+
+from __future__ import annotations
+
+
+class DiffdeckError(Exception):
+    """Base of every error the CLI reports as a single line; `exit_code` is what the process returns."""
+
+    exit_code = 2
+
+
+class InputError(DiffdeckError):
+    """Bad user input (profile, CSV, program, recording): names the file, the key or field, the value, what is allowed."""
+
+    def __init__(self, where: str, key: str, value: object, allowed: str) -> None:
+        self.where = where
+        self.key = key
+        self.value = value
+        self.allowed = allowed
+        super().__init__(f"{where}: {key} = {value!r}: {allowed}")
+
+
+class LinkLost(DiffdeckError):
+    """The link to the robot went away (unplugged adapter, closed pty, reset TCP bridge)."""
+
+    exit_code = 3
+
+
+class RobotFault(DiffdeckError):
+    """The robot reported a fault or a watchdog trip."""
+
+    exit_code = 4
