@@ -265,14 +265,28 @@ def _limits(table: _Table, geometry: Geometry) -> Limits:
     if stop_jerk < jerk:
         raise table.error("stop_jerk_mps3", stop_jerk,
                           f"at least jerk_mps3 = {jerk:g} m/s^3: the fast stop may not be gentler than slowing down")
+    turn_accel = table.number("turn_accel_radps2", "rad/s^2")
+    wheel_accel = table.optional("wheel_accel_radps2", "rad/s^2")
+    if wheel_accel is not None:
+        # On a straight line both wheels carry the body acceleration; in a spin each carries omega_dot * W / 2.
+        rim_accel = wheel_accel * geometry.wheel_radius_m
+        for key, value in (("accel_mps2", accel), ("decel_mps2", decel), ("stop_decel_mps2", stop_decel)):
+            if value > rim_accel * (1 + 1e-12):
+                raise table.error(key, value, f"at most wheel_accel_radps2 x wheel_radius_m = {rim_accel:.4g} m/s^2: "
+                                              "the wheels may not accelerate faster")
+        spin_accel = 2.0 * rim_accel / geometry.track_width_m
+        if turn_accel > spin_accel * (1 + 1e-12):
+            raise table.error("turn_accel_radps2", turn_accel,
+                              f"at most 2 x wheel_accel_radps2 x wheel_radius_m / track_width_m = {spin_accel:.4g} "
+                              "rad/s^2: the wheels may not accelerate faster")
     limits = Limits(
         speed_mps=speed, reverse_speed_mps=reverse, turn_rate_radps=turn_rate,
         accel_mps2=accel, decel_mps2=decel, jerk_mps3=jerk,
-        turn_accel_radps2=table.number("turn_accel_radps2", "rad/s^2"),
+        turn_accel_radps2=turn_accel,
         turn_jerk_radps3=table.number("turn_jerk_radps3", "rad/s^3"),
         sideways_accel_mps2=table.optional("sideways_accel_mps2", "m/s^2"),
         wheel_rate_radps=wheel_rate,
-        wheel_accel_radps2=table.optional("wheel_accel_radps2", "rad/s^2"),
+        wheel_accel_radps2=wheel_accel,
         stop_decel_mps2=stop_decel, stop_jerk_mps3=stop_jerk,
     )
     table.finish()
