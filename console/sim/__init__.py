@@ -1,0 +1,1 @@
+"""The simulated robot: physics (plant), firmware emulation, serving on a pty or TCP."""

@@ -1,0 +1,223 @@
+"""The simulated robot's physics: two motors, two wheels with encoders, one vehicle. Pure numbers, no I/O.
+
+Per wheel, the motor follows its (delayed) command as a first-order lag whose acceleration is capped by the torque
+limit:
+
+    d(rate)/dt = clamp((u - rate) / tau, -accel_max, +accel_max),   u = saturate(deadband(command(t - dead_time)))
+
+This ODE is solved in closed form over each step (a straight acceleration segment while the torque limit binds, then
+the exact exponential, exp(-dt / tau)), so a result does not depend on the step size except through the instants at
+which a new command takes effect. The vehicle moves on an exact arc per step from the wheels' mean rates over that step
+(wheel angle travelled / dt): the heading change is then exact whatever the rates did within the step.
+
+Geometry convention: the LEFT wheel has the nominal radius, the RIGHT wheel nominal * wheel_radius_ratio; the actual
+track width is nominal * track_width_scale. The wiring faults of the polarity check sit between the firmware's command
+channels and the motors, and between the encoders and the firmware's measurement channels.
+
+Scalar math on floats (math module, no numpy per step) keeps one step at a few microseconds.
+"""
+
+from __future__ import annotations
+
+import math
+from collections import deque
+from dataclasses import dataclass
+from typing import TYPE_CHECKING
+
+import numpy as np
+
+from shaping.geometry import Geometry
+
+if TYPE_CHECKING:
+    from console.profile import SimConfig
+
+TWO_PI = 2.0 * math.pi
+_TIME_EPS_S = 1e-9
+"""Slack when comparing accumulated step times with the instant a delayed command takes effect."""
+_STRAIGHT_HALF_ANGLE_RAD = 1e-6
+"""Below this half heading change per step the chord factor sin(h)/h uses its series (straight-line limit)."""
+
+
+@dataclass(frozen=True, slots=True)
+class PlantState:
+    """What the firmware can measure, per command channel, plus the true pose.
+
+    left/right are the firmware's encoder CHANNELS (after any wiring fault): measured wheel rate in rad/s (with noise
+    when configured) and integer encoder counts. The pose is the true one (x, y in m, heading in rad, CCW positive).
+    """
+
+    left_radps: float
+    right_radps: float
+    left_ticks: int
+    right_ticks: int
+    x_m: float
+    y_m: float
+    heading_rad: float
+
+
+class _Motor:
+    """One motor and wheel: dead-time delay line, deadband, saturation, torque-limited first-order lag."""
+
+    __slots__ = ("tau", "dead", "deadband", "accel", "max_rate", "rate", "angle", "_queue", "_active", "_last_in")
+
+    def __init__(self, tau_s: float, dead_s: float, deadband: float, accel: float, max_rate: float) -> None:
+        self.tau = tau_s
+        self.dead = dead_s
+        self.deadband = deadband
+        self.accel = accel
+        self.max_rate = max_rate
+        self.rate = 0.0     # actual wheel rate, rad/s
+        self.angle = 0.0    # wheel angle travelled, rad
+        self._queue: deque[tuple[float, float]] = deque()   # (time it takes effect, command)
+        self._active = 0.0
+        self._last_in = 0.0
+
+    def halt(self) -> None:
+        """Zero at once: the wheel stops and every command still in the delay line is dropped."""
+        self.rate = 0.0
+        self._queue.clear()
+        self._active = 0.0
+        self._last_in = 0.0
+
+    def step(self, t: float, dt: float, command: float) -> float:
+        """Advance from time t by dt with `command` arriving at t; return the mean wheel rate over the step."""
+        if command != self._last_in:
+            self._queue.append((t + self.dead, command))
+            self._last_in = command
+        queue = self._queue
+        while queue and queue[0][0] <= t + _TIME_EPS_S:
+            self._active = queue.popleft()[1]
+        u = self._active
+        if -self.deadband < u < self.deadband:
+            u = 0.0
+        elif u > self.max_rate:
+            u = self.max_rate
+        elif u < -self.max_rate:
+            u = -self.max_rate
+        rate = self.rate
+        error = u - rate
+        if error == 0.0:
+            self.angle += rate * dt
+            return rate
+        tau = self.tau
+        accel = self.accel
+        band = accel * tau               # below this error the lag is slower than the torque limit
+        travelled = 0.0
+        rest = dt
+        if error > band or error < -band:
+            signed_accel = accel if error > 0.0 else -accel
+            t_linear = (abs(error) - band) / accel
+            if t_linear >= dt:
+                new_rate = rate + signed_accel * dt
+                self.angle += (rate + new_rate) * 0.5 * dt
+                self.rate = new_rate
+                return (rate + new_rate) * 0.5
+            new_rate = rate + signed_accel * t_linear
+            travelled = (rate + new_rate) * 0.5 * t_linear
+            rate = new_rate
+            error = u - rate
+            rest = dt - t_linear
+        decay = math.exp(-rest / tau) if tau > 0.0 else 0.0
+        travelled += u * rest - error * tau * (1.0 - decay)
+        self.rate = u - error * decay
+        self.angle += travelled
+        return travelled / dt
+
+
+class Plant:
+    """Both motors and wheels, the encoders and the vehicle pose; `step` advances it by dt with channel commands."""
+
+    def __init__(self, geometry: Geometry, sim: SimConfig) -> None:
+        self.sim = sim
+        self.left_radius_m = geometry.wheel_radius_m
+        self.right_radius_m = geometry.wheel_radius_m * sim.wheel_radius_ratio
+        self.track_m = geometry.track_width_m * sim.track_width_scale
+        motor = (
+            sim.motor_time_constant_s,
+            sim.motor_dead_time_s,
+            sim.deadband_radps,
+            sim.wheel_accel_radps2,
+            sim.max_wheel_rate_radps,
+        )
+        self._left = _Motor(*motor)
+        self._right = _Motor(*motor)
+        self._rng = np.random.default_rng(sim.seed)
+        self._ticks_per_rad = sim.encoder_ticks_per_rev / TWO_PI
+        self.t_s = 0.0
+        self.x_m = 0.0
+        self.y_m = 0.0
+        self.heading_rad = 0.0
+
+    @property
+    def pose(self) -> tuple[float, float, float]:
+        """True pose (x_m, y_m, heading_rad); heading is not wrapped (it counts whole turns)."""
+        return self.x_m, self.y_m, self.heading_rad
+
+    @property
+    def wheel_radps(self) -> tuple[float, float]:
+        """True rates of the physical left and right wheels (no noise, no wiring), rad/s."""
+        return self._left.rate, self._right.rate
+
+    @property
+    def wheel_angles_rad(self) -> tuple[float, float]:
+        """True angles travelled by the physical left and right wheels, rad."""
+        return self._left.angle, self._right.angle
+
+    def halt(self) -> None:
+        """Both wheels to zero at once (drive power removed, idealized as an immediate stop)."""
+        self._left.halt()
+        self._right.halt()
+
+    def advance(self, dt_s: float, left_cmd_radps: float, right_cmd_radps: float) -> None:
+        """Advance by dt with the firmware's channel commands (wheel rad/s); no measurement is made."""
+        sim = self.sim
+        if sim.swap_motors:
+            left_cmd_radps, right_cmd_radps = right_cmd_radps, left_cmd_radps
+        scale = sim.unit_scale
+        left_u = 0.0 if sim.dead_left else (-scale if sim.invert_left_motor else scale) * left_cmd_radps
+        right_u = 0.0 if sim.dead_right else (-scale if sim.invert_right_motor else scale) * right_cmd_radps
+        t = self.t_s
+        left_mean = self._left.step(t, dt_s, left_u)
+        right_mean = self._right.step(t, dt_s, right_u)
+        self.t_s = t + dt_s
+        left_speed = self.left_radius_m * left_mean
+        right_speed = self.right_radius_m * right_mean
+        v = 0.5 * (left_speed + right_speed)
+        dtheta = (right_speed - left_speed) / self.track_m * dt_s
+        half = 0.5 * dtheta
+        # Exact arc: chord length v*dt*sin(half)/half along the mean heading (straight line as half -> 0).
+        if -_STRAIGHT_HALF_ANGLE_RAD < half < _STRAIGHT_HALF_ANGLE_RAD:
+            chord = v * dt_s * (1.0 - half * half / 6.0)
+        else:
+            chord = v * dt_s * math.sin(half) / half
+        mid = self.heading_rad + half
+        self.x_m += chord * math.cos(mid)
+        self.y_m += chord * math.sin(mid)
+        self.heading_rad += dtheta
+
+    def measure(self) -> PlantState:
+        """What the encoders report now, per firmware channel (noise drawn here, once per measurement)."""
+        sim = self.sim
+        left_sign = -1.0 if sim.invert_left_encoder else 1.0
+        right_sign = -1.0 if sim.invert_right_encoder else 1.0
+        left_rate = left_sign * self._left.rate
+        right_rate = right_sign * self._right.rate
+        if sim.noise_radps > 0.0:
+            noise_left, noise_right = self._rng.normal(0.0, sim.noise_radps, size=2)
+            left_rate += float(noise_left)
+            right_rate += float(noise_right)
+        per_rad = self._ticks_per_rad
+        return PlantState(
+            left_radps=left_rate,
+            right_radps=right_rate,
+            left_ticks=math.floor(left_sign * self._left.angle * per_rad),
+            right_ticks=math.floor(right_sign * self._right.angle * per_rad),
+            x_m=self.x_m,
+            y_m=self.y_m,
+            heading_rad=self.heading_rad,
+        )
+
+    def step(self, dt_s: float, left_cmd_radps: float, right_cmd_radps: float) -> PlantState:
+        """Advance by dt with the channel commands (wheel rad/s), then measure."""
+        self.advance(dt_s, left_cmd_radps, right_cmd_radps)
+        return self.measure()
