@@ -84,25 +84,35 @@ class Envelope:
             available = min(available, self.limits.sideways_accel_mps2 / speed)
         return available
 
+    def usage(self, v_mps: float, omega_radps: float) -> tuple[float, Bound | None]:
+        """How far out (v, omega) is: the common factor it must be divided by to fit, and the limit that says so.
+
+        Every limit is a ratio that scales linearly with (v, omega) together; the sideways one is v * omega, which
+        scales with the square, hence its square root.
+        """
+        limits = self.limits
+        worst, bound = 0.0, None
+        if v_mps > 0.0:
+            worst, bound = v_mps / limits.speed_mps, Bound.SPEED
+        elif v_mps < 0.0:
+            worst, bound = -v_mps / limits.reverse_speed_mps, Bound.REVERSE_SPEED
+        ratio = abs(omega_radps) / limits.turn_rate_radps
+        if ratio > worst:
+            worst, bound = ratio, Bound.TURN_RATE
+        left, right = self.geometry.to_wheels(v_mps, omega_radps)
+        ratio = max(abs(left), abs(right)) / limits.wheel_rate_radps
+        if ratio > worst:
+            worst, bound = ratio, Bound.WHEEL_RATE
+        if limits.sideways_accel_mps2 is not None:
+            ratio = math.sqrt(abs(v_mps * omega_radps) / limits.sideways_accel_mps2)
+            if ratio > worst:
+                worst, bound = ratio, Bound.SIDEWAYS_ACCEL
+        return worst, bound
+
     def clamp(self, v_mps: float, omega_radps: float) -> Clamped:
         """Scale (v, omega) by the largest common factor <= 1 that satisfies every limit; name the one that binds."""
-        limits = self.limits
-        candidates: list[tuple[float, Bound]] = []
-        if v_mps > limits.speed_mps:
-            candidates.append((limits.speed_mps / v_mps, Bound.SPEED))
-        elif -v_mps > limits.reverse_speed_mps:
-            candidates.append((limits.reverse_speed_mps / -v_mps, Bound.REVERSE_SPEED))
-        if abs(omega_radps) > limits.turn_rate_radps:
-            candidates.append((limits.turn_rate_radps / abs(omega_radps), Bound.TURN_RATE))
-        left, right = self.geometry.to_wheels(v_mps, omega_radps)
-        fastest_wheel = max(abs(left), abs(right))
-        if fastest_wheel > limits.wheel_rate_radps:
-            candidates.append((limits.wheel_rate_radps / fastest_wheel, Bound.WHEEL_RATE))
-        sideways = abs(v_mps * omega_radps)
-        if limits.sideways_accel_mps2 is not None and sideways > limits.sideways_accel_mps2:
-            # both axes scale by s, so v * omega scales by s**2
-            candidates.append((math.sqrt(limits.sideways_accel_mps2 / sideways), Bound.SIDEWAYS_ACCEL))
-        if not candidates:
+        worst, bound = self.usage(v_mps, omega_radps)
+        if worst <= 1.0:
             return Clamped(v_mps, omega_radps, 1.0, None)
-        scale, bound = min(candidates, key=lambda candidate: candidate[0])
+        scale = 1.0 / worst
         return Clamped(v_mps * scale, omega_radps * scale, scale, bound)

@@ -136,6 +136,18 @@ class Ramp:
         jerk = self._jerks[index]
         return RampState(v + a * dt + 0.5 * jerk * dt * dt, a + jerk * dt, jerk)
 
+    def extent(self) -> tuple[float, float]:
+        """Lowest and highest v on the way (segment joints and wherever the acceleration passes zero)."""
+        low = high = self.target
+        ends = self._starts[1:] + [self.duration]
+        for start, end, (v, a), jerk in zip(self._starts, ends, self._states, self._jerks):
+            low, high = min(low, v), max(high, v)
+            if jerk != 0.0 and 0.0 < -a / jerk < end - start:
+                turn_at = -a / jerk
+                v_turn = v + a * turn_at + 0.5 * jerk * turn_at * turn_at
+                low, high = min(low, v_turn), max(high, v_turn)
+        return low, high
+
     def travel(self) -> float:
         """Integral of v over the plan (metres for a speed ramp, radians for a turn-rate ramp)."""
         total = 0.0
@@ -166,6 +178,11 @@ def _normalised_plan(v0: float, a0: float, target: float, limits: AxisLimits) ->
         second = _rising(tn, a_cross, 0.0, limits.accel, jerk)
         return direction, first + second, len(first)
     return direction, _rising(tn - v0n, a0n, 0.0, limits.accel, jerk), 0
+
+
+def standstill(v: float) -> Ramp:
+    """A plan that is already finished: holds v with zero acceleration."""
+    return Ramp(v, 0.0, v, 1.0, [], 0)
 
 
 def plan_ramp(v0: float, a0: float, target: float, limits: AxisLimits) -> Ramp:

@@ -1,0 +1,360 @@
+"""Both axes together: sanitize -> envelope (curvature kept) -> jerk-limited ramps -> wheel rates; stops.
+
+In the default synchronized mode the speed and turn-rate ramps arrive together. Where the starting state allows
+(from rest, or with accelerations proportional to the step) the two axes follow ONE scalar ramp along the straight
+line from the current (v, omega) to the target, so a robot asked for an arc from rest starts on that arc. The
+scalar ramp's limits are the tightest of both axes and of the wheels, which keeps it time-optimal under all of them.
+Otherwise both axes are planned time-optimally and the faster one is stretched to arrive with the slower.
+
+A re-target from a moving state can bend the way between two points that both lie inside the envelope out of it
+(the wheel-rate and sideways limits are not boxes). Such a plan is checked along its way; if it leaves the
+envelope, the shaper first goes to the largest same-curvature part of the target whose way stays inside, and from
+there (at rest in acceleration, so on a straight line) on to the target itself.
+"""
+
+from __future__ import annotations
+
+import enum
+import math
+from dataclasses import dataclass
+
+from shaping.envelope import Bound, Envelope, Limits
+from shaping.geometry import Geometry
+from shaping.ramp import AxisLimits, Ramp, plan_ramp, standstill, stretch_ramp
+
+_PATH_CHECKS = 24
+"""Points along a re-targeting plan at which it is checked against the envelope."""
+
+_REFINE_STEPS = 16
+"""Golden-section steps around the worst checked point (shrinks the bracket by 0.618**16, about 1/2200)."""
+
+_SHRINK_STEPS = 10
+"""Bisection steps for the largest part of a target whose way stays inside the envelope (1/1024 resolution)."""
+
+_AT_LIMIT = 0.999
+"""Share of a budget from which a limit counts as binding (what the operator sees as 'which limit binds')."""
+
+
+class Mode(enum.Enum):
+    SYNCED = "synced"
+    INDEPENDENT = "independent"
+
+
+class StopKind(enum.Enum):
+    CONTROLLED = "controlled"  # normal limits, to rest
+    FAST = "fast"  # stop_decel / stop_jerk, to rest
+    IMMEDIATE = "immediate"  # zero at once, for a drive that removes power
+
+
+@dataclass(frozen=True, slots=True)
+class Shaped:
+    """One shaping cycle's output; see the field comments in the project's contract."""
+
+    v_req_mps: float
+    omega_req_radps: float
+    v_target_mps: float
+    omega_target_radps: float
+    v_mps: float
+    omega_radps: float
+    a_mps2: float
+    alpha_radps2: float
+    jerk_mps3: float
+    turn_jerk_radps3: float
+    left_radps: float
+    right_radps: float
+    bound: Bound | None
+    accel_use: float
+    jerk_use: float
+    rejected: bool
+    stopping: StopKind | None
+    immediate_zero: bool
+    settled: bool
+
+
+def speed_limits(limits: Limits, stop: StopKind | None = None) -> AxisLimits:
+    """Speed-axis ramp limits, normal or for a fast stop."""
+    if stop is StopKind.FAST:
+        return AxisLimits(limits.stop_decel_mps2, limits.stop_decel_mps2, limits.stop_jerk_mps3)
+    return AxisLimits(limits.accel_mps2, limits.decel_mps2, limits.jerk_mps3)
+
+
+def turn_limits(limits: Limits, stop: StopKind | None = None) -> AxisLimits:
+    """Turn-axis ramp limits. A fast stop scales them like the speed axis's, so the stop keeps the path."""
+    accel, jerk = limits.turn_accel_radps2, limits.turn_jerk_radps3
+    if stop is StopKind.FAST:
+        accel *= limits.stop_decel_mps2 / limits.decel_mps2
+        jerk *= limits.stop_jerk_mps3 / limits.jerk_mps3
+    return AxisLimits(accel, accel, jerk)
+
+
+def _scaled(limits: AxisLimits, factor: float) -> AxisLimits:
+    return AxisLimits(limits.accel * factor, limits.decel * factor, limits.jerk)
+
+
+def _speed_bound_along(v0: float, v1: float, limits: AxisLimits) -> float:
+    """The acceleration bound that holds on the whole way from v0 to v1 (both bounds where it crosses zero)."""
+    if v0 * v1 < 0.0:
+        return min(limits.accel, limits.decel)
+    return limits.accel if abs(v1) >= abs(v0) else limits.decel
+
+
+# (v, a, j, omega, alpha, turn_jerk)
+_Sample = tuple[float, float, float, float, float, float]
+
+
+class _AxesMotion:
+    """Two separately planned ramps (time-synchronized or independent)."""
+
+    __slots__ = ("speed", "turn", "duration")
+
+    def __init__(self, speed: Ramp, turn: Ramp) -> None:
+        self.speed = speed
+        self.turn = turn
+        self.duration = max(speed.duration, turn.duration)
+
+    def box(self) -> tuple[tuple[float, float], tuple[float, float]]:
+        """Ranges of v and omega the way stays in."""
+        return self.speed.extent(), self.turn.extent()
+
+    def sample(self, t: float) -> _Sample:
+        s, w = self.speed.at(t), self.turn.at(t)
+        return s.v, s.a, s.j, w.v, w.a, w.j
+
+
+class _LineMotion:
+    """Both axes on one scalar ramp sigma: 0 -> 1 along the straight line from the start to the target."""
+
+    __slots__ = ("sigma", "start", "step", "target", "duration")
+
+    def __init__(self, sigma: Ramp, start: tuple[float, float], target: tuple[float, float]) -> None:
+        self.sigma = sigma
+        self.start = start
+        self.target = target
+        self.step = (target[0] - start[0], target[1] - start[1])
+        self.duration = sigma.duration
+
+    def sample(self, t: float) -> _Sample:
+        if t >= self.duration:
+            return self.target[0], 0.0, 0.0, self.target[1], 0.0, 0.0
+        s = self.sigma.at(t)
+        dv, dw = self.step
+        return self.start[0] + dv * s.v, dv * s.a, dv * s.j, self.start[1] + dw * s.v, dw * s.a, dw * s.j
+
+    def box(self) -> tuple[tuple[float, float], tuple[float, float]]:
+        low, high = self.sigma.extent()
+        (v, w), (dv, dw) = self.start, self.step
+        return (
+            (min(v + dv * low, v + dv * high), max(v + dv * low, v + dv * high)),
+            (min(w + dw * low, w + dw * high), max(w + dw * low, w + dw * high)),
+        )
+
+
+_REST = _AxesMotion(standstill(0.0), standstill(0.0))
+
+
+class Shaper:
+    """Stateful shaping of a stream of (v, omega) requests; the caller supplies every time step."""
+
+    def __init__(self, geometry: Geometry, limits: Limits, mode: Mode = Mode.SYNCED) -> None:
+        self.envelope = Envelope(geometry, limits)
+        self.mode = mode
+        self.reset()
+
+    def reset(self) -> None:
+        """Back to rest with no stop pending: every ramp starts again from zero."""
+        self._motion: _AxesMotion | _LineMotion = _REST
+        self._t = 0.0
+        self._target = (0.0, 0.0)
+        self._request = (0.0, 0.0)
+        self._stop: StopKind | None = None
+        self._bound: Bound | None = None
+        self._detour = False  # the current plan ends short of the target (see the module docstring)
+
+    @property
+    def stopping(self) -> StopKind | None:
+        return self._stop
+
+    def stop(self, kind: StopKind) -> None:
+        """Bring the robot to rest; requests are ignored until reset(). A stop never softens a harsher one."""
+        order = (None, StopKind.CONTROLLED, StopKind.FAST, StopKind.IMMEDIATE)
+        if order.index(kind) <= order.index(self._stop):
+            return
+        if kind is StopKind.IMMEDIATE:
+            self._motion, self._t = _REST, 0.0
+        else:
+            self._replan((0.0, 0.0), stop=kind)
+        self._stop = kind
+        self._target = (0.0, 0.0)
+
+    def step(self, dt_s: float, v_req_mps: float, omega_req_radps: float) -> Shaped:
+        """Take the request now, advance by dt_s, and return the shaped command at the end of the step."""
+        if not (math.isfinite(dt_s) and dt_s >= 0.0):
+            raise ValueError(f"time step must be finite and >= 0, got {dt_s!r}")
+        rejected = not (math.isfinite(v_req_mps) and math.isfinite(omega_req_radps))
+        if not rejected:
+            self._request = (v_req_mps, omega_req_radps)
+        if self._stop is None:
+            clamped = self.envelope.clamp(*self._request)
+            self._bound = clamped.bound
+            target = (clamped.v_mps, clamped.omega_radps)
+            if target != self._target or (self._detour and self._t >= self._motion.duration):
+                self._replan(target, stop=None)
+                self._target = target
+        self._t += dt_s
+        return self._output(rejected)
+
+    # -- planning -------------------------------------------------------------------------------------------------
+
+    def _replan(self, target: tuple[float, float], stop: StopKind | None) -> None:
+        v, a, _, w, alpha, _ = self._motion.sample(self._t)
+        self._t = 0.0
+        self._detour = False
+        self._motion = self._plan((v, a), (w, alpha), target, stop)
+        if stop is not None or self._way_inside(self._motion):
+            return
+        inside, outside = 0.0, 1.0
+        for _ in range(_SHRINK_STEPS):
+            middle = 0.5 * (inside + outside)
+            if self._way_inside(self._plan((v, a), (w, alpha), (target[0] * middle, target[1] * middle), None)):
+                inside = middle
+            else:
+                outside = middle
+        self._motion = self._plan((v, a), (w, alpha), (target[0] * inside, target[1] * inside), None)
+        self._detour = True
+
+    def _plan(
+        self, speed_state: tuple[float, float], turn_state: tuple[float, float], target: tuple[float, float],
+        stop: StopKind | None,
+    ) -> _AxesMotion | _LineMotion:
+        limits = self.envelope.limits
+        speed, turn = speed_limits(limits, stop), turn_limits(limits, stop)
+        (v, a), (w, alpha) = speed_state, turn_state
+        dv, dw = target[0] - v, target[1] - w
+        if self.mode is Mode.SYNCED and abs(a * dw - alpha * dv) <= 1e-9 * (abs(a * dw) + abs(alpha * dv)) + 1e-12:
+            return self._plan_line(speed_state, turn_state, target, speed, turn)
+        return self._plan_axes(speed_state, turn_state, target, speed, turn)
+
+    def _way_inside(self, motion: _AxesMotion | _LineMotion) -> bool:
+        """Whether the plan stays inside the envelope: evenly spaced points, then a golden-section search for the
+        largest envelope usage around the worst of them (usage is smooth between segment joints)."""
+        if motion.duration <= 0.0:
+            return True
+        # Cheap and sufficient: the box the way stays in is inside when its corners are (the linear limits bound
+        # a convex region; |v * omega| is largest at a corner).
+        (v_low, v_high), (w_low, w_high) = motion.box()
+        usage_of = self.envelope.usage
+        if max(usage_of(v, w)[0] for v in (v_low, v_high) for w in (w_low, w_high)) <= 1.0:
+            return True
+
+        def usage(t: float) -> float:
+            v, _, _, w, _, _ = motion.sample(t)
+            return usage_of(v, w)[0]
+
+        step = motion.duration / _PATH_CHECKS
+        worst_index = max(range(_PATH_CHECKS + 1), key=lambda index: usage(index * step))
+        low, high = max(0.0, (worst_index - 1) * step), min(motion.duration, (worst_index + 1) * step)
+        for _ in range(_REFINE_STEPS):
+            third = (high - low) * 0.381966
+            if usage(low + third) > usage(high - third):
+                high = high - third
+            else:
+                low = low + third
+        return usage(0.5 * (low + high)) <= 1.0 + 1e-9 and usage(worst_index * step) <= 1.0 + 1e-9
+
+    def _plan_line(
+        self, speed_state: tuple[float, float], turn_state: tuple[float, float], target: tuple[float, float],
+        speed: AxisLimits, turn: AxisLimits,
+    ) -> _LineMotion:
+        (v, a), (w, alpha) = speed_state, turn_state
+        dv, dw = target[0] - v, target[1] - w
+        accel_bounds, jerk_bounds = [], []
+        if dv != 0.0:
+            accel_bounds.append(_speed_bound_along(v, target[0], speed) / abs(dv))
+            jerk_bounds.append(speed.jerk / abs(dv))
+        if dw != 0.0:
+            accel_bounds.append(turn.accel / abs(dw))
+            jerk_bounds.append(turn.jerk / abs(dw))
+        if not accel_bounds:
+            return _LineMotion(standstill(1.0), (v, w), target)
+        wheel_accel = self.envelope.limits.wheel_accel_radps2
+        if wheel_accel is not None:
+            geometry = self.envelope.geometry
+            wheel_step = max(abs(x) for x in geometry.to_wheels(dv, dw))
+            if wheel_step > 0.0:
+                accel_bounds.append(wheel_accel / wheel_step)
+        sigma_accel = min(accel_bounds)
+        sigma_rate = a / dv if dv != 0.0 else alpha / dw
+        sigma = plan_ramp(0.0, sigma_rate, 1.0, AxisLimits(sigma_accel, sigma_accel, min(jerk_bounds)))
+        return _LineMotion(sigma, (v, w), target)
+
+    def _plan_axes(
+        self, speed_state: tuple[float, float], turn_state: tuple[float, float], target: tuple[float, float],
+        speed: AxisLimits, turn: AxisLimits,
+    ) -> _AxesMotion:
+        speed, turn = self._share_wheel_accel(speed_state, turn_state, target, speed, turn)
+        speed_ramp = plan_ramp(*speed_state, target[0], speed)
+        turn_ramp = plan_ramp(*turn_state, target[1], turn)
+        if self.mode is Mode.SYNCED:
+            duration = max(speed_ramp.duration, turn_ramp.duration)
+            speed_ramp = stretch_ramp(speed_ramp, speed, duration)
+            turn_ramp = stretch_ramp(turn_ramp, turn, duration)
+        return _AxesMotion(speed_ramp, turn_ramp)
+
+    def _share_wheel_accel(
+        self, speed_state: tuple[float, float], turn_state: tuple[float, float], target: tuple[float, float],
+        speed: AxisLimits, turn: AxisLimits,
+    ) -> tuple[AxisLimits, AxisLimits]:
+        """Lower the body limits just enough that |a| + |alpha| W/2 <= wheel_accel * r whatever each axis does."""
+        wheel_accel = self.envelope.limits.wheel_accel_radps2
+        if wheel_accel is None:
+            return speed, turn
+        geometry = self.envelope.geometry
+        rim_accel = wheel_accel * geometry.wheel_radius_m
+        half_track = 0.5 * geometry.track_width_m
+        speed_moves = speed_state != (target[0], 0.0)
+        turn_moves = turn_state != (target[1], 0.0)
+        speed_need = max(speed.accel, speed.decel) if speed_moves else 0.0
+        turn_need = turn.accel * half_track if turn_moves else 0.0
+        factor = min(1.0, rim_accel / (speed_need + turn_need)) if speed_need + turn_need > 0.0 else 1.0
+        return _scaled(speed, factor), _scaled(turn, factor)
+
+    # -- output ---------------------------------------------------------------------------------------------------
+
+    def _output(self, rejected: bool) -> Shaped:
+        v, a, j, w, alpha, turn_jerk = self._motion.sample(self._t)
+        limits = self.envelope.limits
+        speed, turn = speed_limits(limits, self._stop), turn_limits(limits, self._stop)
+        left, right = self.envelope.geometry.to_wheels(v, w)
+        accel_use = max(abs(a) / speed.bound(v, a), abs(alpha) / turn.accel)
+        bound = self._bound
+        wheel_accel_use = 0.0
+        if limits.wheel_accel_radps2 is not None:
+            wheel_accel_use = max(abs(x) for x in self.envelope.geometry.to_wheels(a, alpha)) / limits.wheel_accel_radps2
+        jerk_use = max(abs(j) / speed.jerk, abs(turn_jerk) / turn.jerk)
+        if bound is None or self._stop is not None:
+            bound = None
+            if max(accel_use, wheel_accel_use) >= _AT_LIMIT:
+                bound = Bound.WHEEL_ACCEL if wheel_accel_use > accel_use else Bound.ACCEL
+            elif jerk_use >= _AT_LIMIT:
+                bound = Bound.JERK
+        return Shaped(
+            v_req_mps=self._request[0],
+            omega_req_radps=self._request[1],
+            v_target_mps=self._target[0],
+            omega_target_radps=self._target[1],
+            v_mps=v,
+            omega_radps=w,
+            a_mps2=a,
+            alpha_radps2=alpha,
+            jerk_mps3=j,
+            turn_jerk_radps3=turn_jerk,
+            left_radps=left,
+            right_radps=right,
+            bound=bound,
+            accel_use=min(1.0, max(accel_use, wheel_accel_use)),
+            jerk_use=min(1.0, jerk_use),
+            rejected=rejected,
+            stopping=self._stop,
+            immediate_zero=self._stop is StopKind.IMMEDIATE,
+            settled=self._t >= self._motion.duration,
+        )
