@@ -31,7 +31,10 @@ class WheelUnits:
 
     rpm and ticks/s are on the motor side of the gearbox (gear_ratio motor revolutions per wheel revolution);
     duty is the fraction of full_duty_radps (the wheel rate at duty 1.0). Trim multiplies the command of one wheel
-    to correct a known mismatch; invert flips a motor wired the other way round.
+    to correct a known mismatch. Polarity and wiring, each fixable in the profile:
+    - invert_left / invert_right: a side mounted mirrored: its command and its measurement both flip;
+    - invert_left_encoder / invert_right_encoder: the measurement alone flips (encoder channels A/B reversed);
+    - swap_motors: the firmware's left channel drives the right motor; swap_encoders: likewise for measurements.
     """
 
     unit: WheelUnit = WheelUnit.RADPS
@@ -42,6 +45,10 @@ class WheelUnits:
     invert_right: bool = False
     trim_left: float = 1.0
     trim_right: float = 1.0
+    invert_left_encoder: bool = False
+    invert_right_encoder: bool = False
+    swap_motors: bool = False
+    swap_encoders: bool = False
 
     @property
     def suffix(self) -> str:
@@ -65,13 +72,26 @@ class WheelUnits:
     def to_motor(self, left_radps: float, right_radps: float) -> tuple[float, float]:
         """Wheel rates in rad/s -> firmware commands (unit, trim, polarity)."""
         scale_left, scale_right = self._signed_scales()
-        return left_radps * scale_left * self.trim_left, right_radps * scale_right * self.trim_right
+        left, right = left_radps * scale_left * self.trim_left, right_radps * scale_right * self.trim_right
+        return (right, left) if self.swap_motors else (left, right)
 
     def from_motor(self, left: float, right: float) -> tuple[float, float]:
-        """Firmware values -> wheel rates in rad/s: undoes unit and polarity, not trim.
+        """Firmware command values -> wheel rates in rad/s: undoes unit, polarity and channel swap, not trim.
 
-        Trim exists to make a mismatched motor follow; what a wheel measures (or what a motor receives) is the
-        physical rate, so the trim is not divided out again.
+        Trim exists to make a mismatched motor follow; what a motor receives is the physical rate, so the trim is
+        not divided out again. The simulated robot uses this to read the commands it is sent.
         """
+        if self.swap_motors:
+            left, right = right, left
         scale_left, scale_right = self._signed_scales()
         return left / scale_left, right / scale_right
+
+    def measured_from_motor(self, left: float, right: float) -> tuple[float, float]:
+        """Measured firmware values (telemetry) -> wheel rates in rad/s, with the encoder polarity and swap."""
+        if self.swap_encoders:
+            left, right = right, left
+        scale_left, scale_right = self._signed_scales()
+        return (
+            left / scale_left * (-1.0 if self.invert_left_encoder else 1.0),
+            right / scale_right * (-1.0 if self.invert_right_encoder else 1.0),
+        )
