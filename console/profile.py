@@ -311,6 +311,10 @@ def _units(table: _Table, limits: Limits) -> WheelUnits:
         invert_left=table.boolean("invert_left", False), invert_right=table.boolean("invert_right", False),
         trim_left=table.number("trim_left", "command factor", 1.0, low=low, high=high, low_inclusive=True),
         trim_right=table.number("trim_right", "command factor", 1.0, low=low, high=high, low_inclusive=True),
+        invert_left_encoder=table.boolean("invert_left_encoder", False),
+        invert_right_encoder=table.boolean("invert_right_encoder", False),
+        swap_motors=table.boolean("swap_motors", False),
+        swap_encoders=table.boolean("swap_encoders", False),
     )
     table.finish()
     return units

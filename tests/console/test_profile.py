@@ -160,6 +160,7 @@ BAD = [
     ("wren", "units", "trim_left", "1.8", "units.trim_left", "1.8", "a number from 0.5 up to 1.5"),
     ("wren", "units", "gear_ratio", "0", "units.gear_ratio", "0", "a number greater than 0"),
     ("wren", "units", "invert_left", "1", "units.invert_left", "1", "true or false"),
+    ("wren", "units", "swap_encoders", '"no"', "units.swap_encoders", "'no'", "true or false"),
     ("bramble", "units", "ticks_per_rev", None, "units.ticks_per_rev", "(missing)", "required"),
     ("wren-template", "units", "full_duty_radps", None, "units.full_duty_radps", "(missing)", "required"),
     ("wren-template", "units", "full_duty_radps", "10.0", "units.full_duty_radps", "10.0",
