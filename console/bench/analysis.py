@@ -1,0 +1,245 @@
+"""Response analysis on sampled signals: step metrics, first-order-plus-dead-time fits, derivatives, limit suggestions.
+
+Pure numpy/scipy on arrays (no files): the report feeds it recordings, the tests feed it synthetic responses with
+known parameters. Everything is vectorized so an hour at 100 Hz takes seconds.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+from scipy import optimize, signal
+
+RISE_LOW, RISE_HIGH = 0.1, 0.9          # 10-90 % rise time (common practice)
+SETTLING_BAND = 0.02                    # 2 % settling criterion (common practice)
+DEAD_BAND = 0.02                        # the response "starts" when it leaves 2 % of its change (common practice)
+FINAL_SHARE = 0.1                       # the steady state is the mean of the last 10 % of a step's window
+ACCEL_WINDOW_S = 0.15                   # Savitzky-Golay window for the first derivative
+JERK_WINDOW_S = 0.3                     # and for the second
+
+
+@dataclass(frozen=True, slots=True)
+class StepMetrics:
+    """Metrics of one step of the request from `request_before` to `request_after` at `t_step_s`.
+
+    Times are measured from the request step. Rise, overshoot and settling refer to the response's own change
+    (initial -> final); the steady-state error is request_after - final. None: not measurable in this window.
+    """
+
+    t_step_s: float
+    request_before: float
+    request_after: float
+    initial: float
+    final: float
+    dead_time_s: float | None
+    rise_time_s: float | None
+    overshoot_pct: float | None
+    settling_time_s: float | None
+    steady_state_error: float
+
+
+def _first_crossing(t: np.ndarray, z: np.ndarray, level: float) -> float | None:
+    """Linearly interpolated time at which z first reaches `level` (z rising), None if it never does."""
+    above = np.flatnonzero(z >= level)
+    if above.size == 0:
+        return None
+    i = int(above[0])
+    if i == 0:
+        return float(t[0])
+    z0, z1 = z[i - 1], z[i]
+    return float(t[i - 1] + (level - z0) / (z1 - z0) * (t[i] - t[i - 1]))
+
+
+def step_metrics(t: np.ndarray, y: np.ndarray, t_step: float, request_before: float, request_after: float,
+                 t_end: float | None = None) -> StepMetrics | None:
+    """Step metrics of response y(t) to a request step at t_step; the window ends at t_end (default: last sample)."""
+    t_end = float(t[-1]) if t_end is None else t_end
+    valid = np.isfinite(y)
+    after = valid & (t >= t_step) & (t <= t_end)
+    before = valid & (t < t_step) & (t >= t_step - 0.25)
+    if np.count_nonzero(after) < 10:
+        return None
+    ta, ya = t[after], y[after]
+    initial = float(np.mean(y[before])) if np.any(before) else float(ya[0])
+    tail = max(3, int(math.ceil(FINAL_SHARE * ta.size)))
+    final = float(np.mean(ya[-tail:]))
+    change = final - initial
+    error = request_after - final
+    if abs(change) < 1e-9 or abs(change) < 0.05 * abs(request_after - request_before):
+        return StepMetrics(t_step, request_before, request_after, initial, final, None, None, None, None, error)
+    z = (ya - initial) / change
+    rel = ta - t_step
+    dead = _first_crossing(rel, z, DEAD_BAND)
+    t10, t90 = _first_crossing(rel, z, RISE_LOW), _first_crossing(rel, z, RISE_HIGH)
+    rise = None if t10 is None or t90 is None else t90 - t10
+    overshoot = max(0.0, float(np.max(z)) - 1.0) * 100.0
+    outside = np.flatnonzero(np.abs(z - 1.0) > SETTLING_BAND)
+    if outside.size == 0:
+        settling: float | None = 0.0
+    elif outside[-1] >= z.size - 1:
+        settling = None                                    # still outside the band at the end of the window
+    else:
+        i = int(outside[-1])
+        e0, e1 = abs(z[i] - 1.0), abs(z[i + 1] - 1.0)
+        settling = float(rel[i] + (e0 - SETTLING_BAND) / (e0 - e1) * (rel[i + 1] - rel[i])) if e0 != e1 \
+            else float(rel[i + 1])
+    return StepMetrics(t_step, request_before, request_after, initial, final, dead, rise, overshoot, settling, error)
+
+
+# --- first order plus dead time ----------------------------------------------------------------------------------
+
+@dataclass(frozen=True, slots=True)
+class FopdtFit:
+    """y' = (gain * u(t - dead_time) - y) / tau, fitted to a recorded command u and response y."""
+
+    gain: float
+    tau_s: float
+    dead_time_s: float
+    r2: float            # coefficient of determination
+    nrmse: float         # RMS error / (max y - min y)
+    samples: int
+
+    @property
+    def lag_s(self) -> float:
+        """tau + dead time: how far a ramp's response trails the command (first-order ramp response)."""
+        return self.tau_s + self.dead_time_s
+
+
+def _uniform(t: np.ndarray, *signals: np.ndarray) -> tuple[float, np.ndarray, list[np.ndarray]]:
+    """Resample onto a uniform grid at the median period (loop rows are nearly uniform already)."""
+    dt = float(np.median(np.diff(t)))
+    grid = t[0] + dt * np.arange(int(round((t[-1] - t[0]) / dt)) + 1)
+    return dt, grid, [np.interp(grid, t, s) for s in signals]
+
+
+def simulate_fopdt(dt: float, u: np.ndarray, gain: float, tau: float, dead: float, y0: float) -> np.ndarray:
+    """Response on a uniform grid: exact discretization for a piecewise-constant input, delay by interpolation."""
+    k = np.arange(u.size)
+    delayed = np.interp(k - dead / dt, k, u, left=u[0])
+    a = math.exp(-dt / tau)
+    forced = signal.lfilter([0.0, (1.0 - a) * gain], [1.0, -a], delayed)
+    return forced + y0 * a ** k
+
+
+def fit_fopdt(t: np.ndarray, u: np.ndarray, y: np.ndarray, max_dead_s: float = 0.5) -> FopdtFit | None:
+    """Least-squares FOPDT fit (scipy.optimize.least_squares) from a coarse grid start; None if u never moves."""
+    keep = np.isfinite(u) & np.isfinite(y) & np.isfinite(t)
+    if np.count_nonzero(keep) < 20 or np.ptp(u[keep]) <= 0.0 or np.ptp(y[keep]) <= 0.0:
+        return None
+    first = int(np.argmax(keep))
+    dt, _, (u_grid, y_grid) = _uniform(t[first:][keep[first:]], u[first:][keep[first:]], y[first:][keep[first:]])
+    y0 = float(y_grid[0])
+    # Coarse grid on at most ~20k points (decimated by averaging), gain solved linearly for each (tau, dead).
+    step = max(1, u_grid.size // 20000)
+    n = (u_grid.size // step) * step
+    u_c = u_grid[:n].reshape(-1, step).mean(axis=1)
+    y_c = y_grid[:n].reshape(-1, step).mean(axis=1)
+    dt_c = dt * step
+    best = (math.inf, 1.0, 0.1, 0.0)
+    for tau in np.geomspace(max(dt / 2, 1e-3), 5.0, 28):
+        decay = y0 * math.exp(-dt_c / tau) ** np.arange(u_c.size)
+        for dead in np.linspace(0.0, max_dead_s, 26):
+            unit = simulate_fopdt(dt_c, u_c, 1.0, tau, dead, 0.0)
+            norm = float(unit @ unit)
+            if norm <= 0.0:
+                continue
+            gain = float((y_c - decay) @ unit) / norm
+            cost = float(np.sum((y_c - decay - gain * unit) ** 2))
+            if cost < best[0]:
+                best = (cost, gain, tau, dead)
+    _, gain0, tau0, dead0 = best
+
+    def residual(p: np.ndarray) -> np.ndarray:
+        return simulate_fopdt(dt, u_grid, p[0], p[1], p[2], y0) - y_grid
+
+    lower, upper = [-100.0, dt / 20, 0.0], [100.0, 20.0, max_dead_s * 2]
+    start = np.clip([gain0, tau0, dead0], np.add(lower, 1e-9), np.subtract(upper, 1e-9))
+    result = optimize.least_squares(residual, start, bounds=(lower, upper), x_scale=[1.0, 0.05, 0.01])
+    gain, tau, dead = (float(v) for v in result.x)
+    res = result.fun
+    total = float(np.sum((y_grid - y_grid.mean()) ** 2))
+    r2 = 1.0 - float(res @ res) / total if total > 0 else math.nan
+    nrmse = float(np.sqrt(np.mean(res ** 2))) / float(np.ptp(y_grid))
+    return FopdtFit(gain, tau, dead, r2, nrmse, int(y_grid.size))
+
+
+# --- derivatives -------------------------------------------------------------------------------------------------
+
+def _window(dt: float, seconds: float, polyorder: int) -> int:
+    length = max(polyorder + 2, int(round(seconds / dt)))
+    return length + 1 if length % 2 == 0 else length
+
+
+def derivative(t: np.ndarray, y: np.ndarray, order: int) -> np.ndarray:
+    """First (order 1) or second (order 2) derivative by Savitzky-Golay smoothing (scipy.signal.savgol_filter).
+
+    Measured rates are quantized and sample-held, so plain differences would turn into spikes; NaNs are filled by
+    interpolation first. Assumes nearly uniform sampling (loop rows).
+    """
+    good = np.isfinite(y)
+    if np.count_nonzero(good) < 5:
+        return np.full_like(y, np.nan)
+    filled = np.interp(t, t[good], y[good])
+    dt = float(np.median(np.diff(t)))
+    polyorder = 2 if order == 1 else 3
+    window = _window(dt, ACCEL_WINDOW_S if order == 1 else JERK_WINDOW_S, polyorder)
+    if window > filled.size:
+        window = filled.size if filled.size % 2 else filled.size - 1
+        if window <= polyorder:
+            return np.full_like(y, np.nan)
+    return signal.savgol_filter(filled, window, polyorder, deriv=order, delta=dt, mode="interp")
+
+
+# --- suggested limits --------------------------------------------------------------------------------------------
+
+ACCEL_ERROR_SHARE = 0.25   # the acceleration may trail the command by at most 25 % of the suggested acceleration
+
+
+@dataclass(frozen=True, slots=True)
+class SuggestedLimits:
+    """Limits a FOPDT wheel follows within a stated tracking error.
+
+    A first-order lag with dead time trails a ramp of slope a by a * (tau + dead) once the transient has passed
+    (the ramp response of a first-order system, e.g. Ogata, Modern Control Engineering, 5th ed., 2010, sec. 5-3,
+    from memory); its acceleration obeys the same equation, so it trails a jerk j by j * (tau + dead).
+    """
+
+    speed_error_mps: float
+    wheel_accel_radps2: float
+    wheel_jerk_radps3: float
+    accel_mps2: float
+    jerk_mps3: float
+    turn_accel_radps2: float
+    turn_jerk_radps3: float
+    from_wheel: str
+
+    def snippet(self, source: str) -> str:
+        return (
+            f"# suggested by `diffdeck report` from {source}: speed tracking error <= {self.speed_error_mps:.3g} m/s,\n"
+            f"# acceleration trailing by <= {ACCEL_ERROR_SHARE:.0%} (FOPDT fit of the {self.from_wheel} wheel, "
+            f"the slower one)\n"
+            "[limits]\n"
+            f"accel_mps2 = {self.accel_mps2:.3g}\n"
+            f"decel_mps2 = {self.accel_mps2:.3g}\n"
+            f"jerk_mps3 = {self.jerk_mps3:.3g}\n"
+            f"turn_accel_radps2 = {self.turn_accel_radps2:.3g}\n"
+            f"turn_jerk_radps3 = {self.turn_jerk_radps3:.3g}\n"
+            f"wheel_accel_radps2 = {self.wheel_accel_radps2:.3g}\n"
+        )
+
+
+def suggest_limits(fits: dict[str, FopdtFit], wheel_radius_m: float, track_width_m: float,
+                   speed_error_mps: float) -> SuggestedLimits | None:
+    """From the slower wheel's fit: the acceleration and jerk it follows within `speed_error_mps`."""
+    usable = {name: fit for name, fit in fits.items() if fit is not None and fit.lag_s > 0}
+    if not usable:
+        return None
+    name, fit = max(usable.items(), key=lambda item: item[1].lag_s)
+    wheel_error = speed_error_mps / wheel_radius_m
+    accel = wheel_error / fit.lag_s
+    jerk = ACCEL_ERROR_SHARE * accel / fit.lag_s
+    spin = 2.0 * wheel_radius_m / track_width_m
+    return SuggestedLimits(speed_error_mps, accel, jerk, wheel_radius_m * accel, wheel_radius_m * jerk,
+                           spin * accel, spin * jerk, name)

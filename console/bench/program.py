@@ -1,0 +1,594 @@
+"""Bench test programs: segments of hold / step / ramp / chirp / square on one axis, loaded from TOML and validated.
+
+A program is written without knowing the robot (amplitudes may be a percentage of the envelope); `bind` resolves it
+against a profile, checks every level against the envelope (one line naming file, key, value, what is allowed), and
+samples it at the loop period into arrays, so a run only indexes precomputed requests.
+The built-in programs are TOML text parsed by the same loader, so they obey the same rules as user programs.
+"""
+
+from __future__ import annotations
+
+import enum
+import math
+import tomllib
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+from scipy import signal
+
+from console.errors import InputError
+from shaping.envelope import Envelope
+
+
+class ProgramError(InputError):
+    """A program that cannot run: file, key, value, what is allowed (exit code 2)."""
+
+
+class Axis(enum.Enum):
+    """What a segment drives: body speed (m/s), body turn rate (rad/s) or one wheel (rad/s, wheels-up)."""
+
+    SPEED = "speed"
+    TURN = "turn"
+    LEFT = "left"
+    RIGHT = "right"
+
+    @property
+    def is_wheel(self) -> bool:
+        return self in (Axis.LEFT, Axis.RIGHT)
+
+    @property
+    def unit(self) -> str:
+        return "m/s" if self is Axis.SPEED else "rad/s"
+
+    @property
+    def partner(self) -> Axis:
+        """The other axis of the same pair (a segment may hold it at a constant with `with`)."""
+        return {Axis.SPEED: Axis.TURN, Axis.TURN: Axis.SPEED, Axis.LEFT: Axis.RIGHT, Axis.RIGHT: Axis.LEFT}[self]
+
+
+class Kind(enum.Enum):
+    HOLD = "hold"
+    STEP = "step"
+    RAMP = "ramp"
+    CHIRP = "chirp"
+    SQUARE = "square"
+
+
+@dataclass(frozen=True, slots=True)
+class Level:
+    """An amplitude as written: absolute (axis unit) or a percentage of the envelope on that axis."""
+
+    value: float
+    percent: bool = False
+
+    def resolve(self, axis: Axis, envelope: Envelope) -> float:
+        if not self.percent:
+            return self.value
+        if axis is Axis.SPEED:
+            top = envelope.top_speed_mps if self.value >= 0.0 else envelope.top_reverse_speed_mps
+        elif axis is Axis.TURN:
+            top = envelope.top_turn_rate_radps
+        else:
+            top = envelope.limits.wheel_rate_radps
+        return self.value / 100.0 * top
+
+    def __str__(self) -> str:
+        return f"{self.value:g}%" if self.percent else f"{self.value:g}"
+
+
+ZERO = Level(0.0)
+CHIRP_METHODS = ("linear", "logarithmic")
+
+
+@dataclass(frozen=True, slots=True)
+class Segment:
+    """One piece of a program. `start`/`end` are hold value, step from/to, ramp from/to, or the offset of a wave."""
+
+    index: int
+    name: str
+    kind: Kind
+    axis: Axis
+    duration_s: float
+    start: Level = ZERO
+    end: Level = ZERO
+    amplitude: Level = ZERO
+    lead_s: float = 0.0           # step: time at `start` before the step
+    f0_hz: float = 0.0            # chirp start frequency
+    f1_hz: float = 0.0            # chirp end frequency
+    method: str = "linear"        # chirp sweep
+    period_s: float = 0.0         # square wave period
+    partner: Level = ZERO         # constant on the partner axis (`with`)
+    bypass: bool = False          # deliberately around the shaper (raw wheel requests)
+
+
+@dataclass(frozen=True, slots=True)
+class Program:
+    name: str
+    description: str
+    source: str                    # the file path, or "built-in"
+    segments: tuple[Segment, ...]
+
+    @property
+    def duration_s(self) -> float:
+        return sum(segment.duration_s for segment in self.segments)
+
+    @property
+    def bypasses(self) -> bool:
+        return any(segment.bypass for segment in self.segments)
+
+
+# --- loading -----------------------------------------------------------------------------------------------------
+
+SEGMENT_KEYS: dict[Kind, frozenset[str]] = {
+    Kind.HOLD: frozenset({"value"}),
+    Kind.STEP: frozenset({"from", "to", "lead_s"}),
+    Kind.RAMP: frozenset({"from", "to"}),
+    Kind.CHIRP: frozenset({"offset", "amplitude", "f0_hz", "f1_hz", "method"}),
+    Kind.SQUARE: frozenset({"offset", "amplitude", "period_s"}),
+}
+COMMON_KEYS = frozenset({"name", "kind", "axis", "duration_s", "with", "bypass_shaper"})
+PROGRAM_KEYS = frozenset({"name", "description"})
+MAX_DURATION_S = 4 * 3600.0
+
+
+class _Reader:
+    """Typed access to one TOML table, raising ProgramError with the dotted key."""
+
+    def __init__(self, where: str, prefix: str, table: dict[str, Any]) -> None:
+        self.where, self.prefix, self.table = where, prefix, table
+
+    def error(self, key: str, value: object, allowed: str) -> ProgramError:
+        return ProgramError(self.where, f"{self.prefix}{key}", value, allowed)
+
+    def number(self, key: str, default: float | None = None, *, low: float = 0.0, high: float = math.inf,
+               low_inclusive: bool = False) -> float:
+        value = self.table.get(key, default)
+        allowed = f"a number {'>=' if low_inclusive else '>'} {low:g}" + (f" and <= {high:g}" if high < math.inf else "")
+        if value is None:
+            raise self.error(key, "(missing)", allowed)
+        if isinstance(value, bool) or not isinstance(value, int | float) or not math.isfinite(value):
+            raise self.error(key, value, allowed)
+        if value < low or (value == low and not low_inclusive) or value > high:
+            raise self.error(key, value, allowed)
+        return float(value)
+
+    def level(self, key: str, default: Level | None = None) -> Level:
+        value = self.table.get(key)
+        allowed = 'a number in the axis unit, or a percentage of the envelope as a string such as "40%"'
+        if value is None:
+            if default is None:
+                raise self.error(key, "(missing)", allowed)
+            return default
+        if isinstance(value, str):
+            text = value.strip()
+            try:
+                number = float(text[:-1]) if text.endswith("%") else math.nan
+            except ValueError:
+                number = math.nan
+            if not math.isfinite(number) or abs(number) > 100.0:
+                raise self.error(key, value, allowed + " (at most 100 %)")
+            return Level(number, percent=True)
+        if isinstance(value, bool) or not isinstance(value, int | float) or not math.isfinite(value):
+            raise self.error(key, value, allowed)
+        return Level(float(value))
+
+    def choice(self, key: str, choices: tuple[str, ...], default: str | None = None) -> str:
+        value = self.table.get(key, default)
+        if value not in choices:
+            raise self.error(key, "(missing)" if value is None else value, "one of " + ", ".join(choices))
+        return str(value)
+
+    def text(self, key: str, default: str) -> str:
+        value = self.table.get(key, default)
+        if not isinstance(value, str):
+            raise self.error(key, value, "a string")
+        return value
+
+    def flag(self, key: str) -> bool:
+        value = self.table.get(key, False)
+        if not isinstance(value, bool):
+            raise self.error(key, value, "true or false")
+        return value
+
+    def only(self, allowed: frozenset[str]) -> None:
+        for key in self.table:
+            if key not in allowed:
+                raise self.error(key, self.table[key], "a known key: " + ", ".join(sorted(allowed)))
+
+
+def _segment(where: str, index: int, table: object) -> Segment:
+    reader = _Reader(where, f"segment[{index}].", table if isinstance(table, dict) else {})
+    if not isinstance(table, dict):
+        raise ProgramError(where, f"segment[{index}]", table, "a table ([[segment]])")
+    kind = Kind(reader.choice("kind", tuple(k.value for k in Kind)))
+    axis = Axis(reader.choice("axis", tuple(a.value for a in Axis), Axis.SPEED.value))
+    reader.only(COMMON_KEYS | SEGMENT_KEYS[kind])
+    duration = reader.number("duration_s", high=MAX_DURATION_S)
+    fields: dict[str, Any] = {}
+    if kind is Kind.HOLD:
+        fields["start"] = fields["end"] = reader.level("value", ZERO)
+    elif kind in (Kind.STEP, Kind.RAMP):
+        fields["start"], fields["end"] = reader.level("from", ZERO), reader.level("to", ZERO)
+        if kind is Kind.STEP:
+            fields["lead_s"] = reader.number("lead_s", 0.0, high=duration, low_inclusive=True)
+            if fields["lead_s"] >= duration:
+                raise reader.error("lead_s", fields["lead_s"], f"less than duration_s = {duration:g}")
+    else:
+        fields["start"] = fields["end"] = reader.level("offset", ZERO)
+        fields["amplitude"] = reader.level("amplitude")
+        if kind is Kind.CHIRP:
+            fields["f0_hz"] = reader.number("f0_hz", high=1000.0)
+            fields["f1_hz"] = reader.number("f1_hz", high=1000.0)
+            fields["method"] = reader.choice("method", CHIRP_METHODS, "linear")
+        else:
+            fields["period_s"] = reader.number("period_s", high=duration)
+    partner = table.get("with", {})
+    if not isinstance(partner, dict) or set(partner) - {axis.partner.value}:
+        raise reader.error("with", partner, f"a table with only the key {axis.partner.value!r} "
+                                            f"(the constant on the other axis)")
+    fields["partner"] = _Reader(where, f"segment[{index}].with.", partner).level(axis.partner.value, ZERO)
+    name = reader.text("name", f"{index} {kind.value} {axis.value}")
+    return Segment(index=index, name=name, kind=kind, axis=axis, duration_s=duration,
+                   bypass=reader.flag("bypass_shaper"), **fields)
+
+
+def parse_program(data: dict[str, Any], where: str, source: str) -> Program:
+    """Validate a parsed TOML document into a Program (raises ProgramError)."""
+    for key in data:
+        if key not in ("program", "segment"):
+            raise ProgramError(where, key, data[key], "only the tables [program] and [[segment]]")
+    header = data.get("program", {})
+    if not isinstance(header, dict):
+        raise ProgramError(where, "program", header, "a table")
+    reader = _Reader(where, "program.", header)
+    reader.only(PROGRAM_KEYS)
+    segments_data = data.get("segment")
+    if not isinstance(segments_data, list) or not segments_data:
+        raise ProgramError(where, "segment", segments_data if segments_data is not None else "(missing)",
+                           "one or more [[segment]] tables")
+    segments = tuple(_segment(where, index, table) for index, table in enumerate(segments_data))
+    total = sum(segment.duration_s for segment in segments)
+    if total > MAX_DURATION_S:
+        raise ProgramError(where, "segment[*].duration_s", f"{total:g} s in all", f"at most {MAX_DURATION_S:g} s")
+    name = reader.text("name", Path(where).stem)
+    return Program(name=name, description=reader.text("description", ""), source=source, segments=segments)
+
+
+def load_program(path: str | Path) -> Program:
+    """Read a TOML program file (raises ProgramError: unreadable, not TOML, or invalid)."""
+    path = Path(path)
+    try:
+        text = path.read_text(encoding="utf-8")
+    except (OSError, UnicodeDecodeError) as error:
+        raise ProgramError(str(path), "file", str(path), f"a readable UTF-8 TOML file ({error.__class__.__name__})")
+    try:
+        data = tomllib.loads(text)
+    except tomllib.TOMLDecodeError as error:
+        raise ProgramError(str(path), "syntax", str(error), "valid TOML")
+    return parse_program(data, str(path), str(path))
+
+
+BUILTIN_TOML: dict[str, str] = {
+    "step": """
+[program]
+description = "speed and turn-rate steps to half the envelope and back, through the shaper"
+[[segment]]
+kind = "step"
+name = "speed up"
+to = "50%"
+lead_s = 0.5
+duration_s = 4.0
+[[segment]]
+kind = "step"
+name = "speed down"
+from = "50%"
+duration_s = 4.0
+[[segment]]
+kind = "step"
+name = "turn up"
+axis = "turn"
+to = "50%"
+lead_s = 0.5
+duration_s = 4.0
+[[segment]]
+kind = "step"
+name = "turn down"
+axis = "turn"
+from = "50%"
+duration_s = 4.0
+""",
+    "ramp": """
+[program]
+description = "speed ramp to 80 % of the envelope and back over 4 s each, through the shaper"
+[[segment]]
+kind = "ramp"
+name = "ramp up"
+to = "80%"
+duration_s = 4.0
+[[segment]]
+kind = "hold"
+name = "top"
+value = "80%"
+duration_s = 1.0
+[[segment]]
+kind = "ramp"
+name = "ramp down"
+from = "80%"
+to = 0.0
+duration_s = 4.0
+[[segment]]
+kind = "hold"
+name = "rest"
+duration_s = 1.0
+""",
+    "chirp": """
+[program]
+description = "60 s linear sine sweep 0.2 -> 3 Hz on speed, 10 % to 50 % of the envelope, through the shaper"
+[[segment]]
+kind = "chirp"
+name = "sweep"
+offset = "30%"
+amplitude = "20%"
+f0_hz = 0.2
+f1_hz = 3.0
+duration_s = 60.0
+[[segment]]
+kind = "hold"
+name = "rest"
+duration_s = 1.0
+""",
+    "square": """
+[program]
+description = "square wave on speed between 0 and 40 % of the envelope, period 4 s, through the shaper"
+[[segment]]
+kind = "square"
+name = "square"
+offset = "20%"
+amplitude = "20%"
+period_s = 4.0
+duration_s = 16.0
+[[segment]]
+kind = "hold"
+name = "rest"
+duration_s = 1.0
+""",
+    "spin": """
+[program]
+description = "spin on the spot: turn-rate steps to +50 % and -50 % of the envelope, through the shaper"
+[[segment]]
+kind = "step"
+name = "spin left"
+axis = "turn"
+to = "50%"
+lead_s = 0.5
+duration_s = 4.0
+[[segment]]
+kind = "step"
+name = "spin right"
+axis = "turn"
+from = "50%"
+to = "-50%"
+duration_s = 4.0
+[[segment]]
+kind = "step"
+name = "rest"
+axis = "turn"
+from = "-50%"
+duration_s = 3.0
+""",
+    "arc": """
+[program]
+description = "a left arc at 40 % speed and 20 % turn rate, through the shaper"
+[[segment]]
+kind = "hold"
+name = "wait"
+duration_s = 0.5
+[[segment]]
+kind = "hold"
+name = "arc"
+value = "40%"
+with = { turn = "20%" }
+duration_s = 6.0
+[[segment]]
+kind = "hold"
+name = "rest"
+duration_s = 3.0
+""",
+    "polarity": """
+[program]
+description = "each wheel pulsed slowly forwards then backwards in turn (wheels off the ground), through the shaper"
+[[segment]]
+kind = "hold"
+name = "wait"
+axis = "left"
+duration_s = 1.0
+[[segment]]
+kind = "step"
+name = "left forwards"
+axis = "left"
+to = "15%"
+duration_s = 2.5
+[[segment]]
+kind = "hold"
+name = "pause 1"
+axis = "left"
+duration_s = 1.5
+[[segment]]
+kind = "step"
+name = "left backwards"
+axis = "left"
+to = "-15%"
+duration_s = 2.5
+[[segment]]
+kind = "hold"
+name = "pause 2"
+axis = "left"
+duration_s = 1.5
+[[segment]]
+kind = "step"
+name = "right forwards"
+axis = "right"
+to = "15%"
+duration_s = 2.5
+[[segment]]
+kind = "hold"
+name = "pause 3"
+axis = "right"
+duration_s = 1.5
+[[segment]]
+kind = "step"
+name = "right backwards"
+axis = "right"
+to = "-15%"
+duration_s = 2.5
+[[segment]]
+kind = "hold"
+name = "rest"
+axis = "right"
+duration_s = 1.5
+""",
+}
+BUILTINS: dict[str, str] = {name: tomllib.loads(text)["program"]["description"] for name, text in BUILTIN_TOML.items()}
+
+
+def builtin(name: str) -> Program:
+    if name not in BUILTIN_TOML:
+        raise ProgramError("program", "name", name, "a built-in (" + ", ".join(BUILTIN_TOML) + ") or a .toml file")
+    data = tomllib.loads(BUILTIN_TOML[name])
+    data["program"]["name"] = name
+    return parse_program(data, f"built-in program {name!r}", "built-in")
+
+
+def resolve_program(spec: str) -> Program:
+    """A built-in name, or the path of a TOML program."""
+    if spec in BUILTIN_TOML:
+        return builtin(spec)
+    if not spec.endswith(".toml") and not Path(spec).exists():
+        return builtin(spec)   # raises with the list of built-ins
+    return load_program(spec)
+
+
+# --- binding to a profile and sampling ---------------------------------------------------------------------------
+
+@dataclass(frozen=True, slots=True)
+class BoundSegment:
+    """A segment with its levels resolved to SI and its place on the program's time line."""
+
+    segment: Segment
+    t_start_s: float
+    t_end_s: float
+    start: float
+    end: float
+    amplitude: float
+    partner: float
+
+    def wave(self, tau: np.ndarray) -> np.ndarray:
+        """The segment's axis value at times tau (s since the segment start), vectorized."""
+        seg = self.segment
+        if seg.kind is Kind.HOLD:
+            return np.full_like(tau, self.start)
+        if seg.kind is Kind.STEP:
+            return np.where(tau < seg.lead_s, self.start, self.end)
+        if seg.kind is Kind.RAMP:
+            return self.start + (self.end - self.start) * np.clip(tau / seg.duration_s, 0.0, 1.0)
+        if seg.kind is Kind.CHIRP:
+            # phi = -90 deg: a sine sweep, so the wave starts at the offset without a jump
+            return self.start + self.amplitude * signal.chirp(tau, seg.f0_hz, seg.duration_s, seg.f1_hz,
+                                                              method=seg.method, phi=-90.0)
+        return self.start + self.amplitude * signal.square(2.0 * np.pi * tau / seg.period_s)
+
+    @property
+    def extremes(self) -> tuple[float, float]:
+        """Lowest and highest value the axis takes in this segment."""
+        if self.segment.kind in (Kind.CHIRP, Kind.SQUARE):
+            return self.start - abs(self.amplitude), self.start + abs(self.amplitude)
+        return min(self.start, self.end), max(self.start, self.end)
+
+
+@dataclass(frozen=True, slots=True)
+class Samples:
+    """A program sampled at the loop period: one row per cycle k at t_s[k] = k * period."""
+
+    t_s: np.ndarray
+    segment: np.ndarray      # segment index per cycle
+    first: np.ndarray        # v (m/s) for body requests, left wheel (rad/s) for wheel requests
+    second: np.ndarray       # omega (rad/s), or right wheel (rad/s)
+    wheels: np.ndarray       # bool: the row is a wheel request (bypass) rather than a body request
+
+
+class BoundProgram:
+    """A program resolved against one profile's envelope; every level checked before anything moves."""
+
+    def __init__(self, program: Program, envelope: Envelope) -> None:
+        self.program = program
+        self.envelope = envelope
+        where = program.source if program.source != "built-in" else f"built-in program {program.name!r}"
+        segments: list[BoundSegment] = []
+        t = 0.0
+        for seg in program.segments:
+            bound = BoundSegment(seg, t, t + seg.duration_s, seg.start.resolve(seg.axis, envelope),
+                                 seg.end.resolve(seg.axis, envelope), seg.amplitude.resolve(seg.axis, envelope),
+                                 seg.partner.resolve(seg.axis.partner, envelope))
+            self._check(where, bound)
+            segments.append(bound)
+            t += seg.duration_s
+        self.segments = tuple(segments)
+        self.duration_s = t
+
+    def _check(self, where: str, bound: BoundSegment) -> None:
+        seg, env, limits = bound.segment, self.envelope, self.envelope.limits
+        key = {Kind.HOLD: "value", Kind.STEP: "to", Kind.RAMP: "to"}.get(seg.kind, "amplitude")
+        low, high = bound.extremes
+        prefix = f"segment[{seg.index}]."
+
+        def fail(name: str, value: object, allowed: str) -> ProgramError:
+            return ProgramError(where, prefix + name, value, allowed + " (the profile's envelope)")
+
+        if seg.axis.is_wheel:
+            bound_rate = limits.wheel_rate_radps
+            for name, value in ((key, max(abs(low), abs(high))), ("with", abs(bound.partner))):
+                if value > bound_rate * (1 + 1e-9):
+                    raise fail(name, value, f"|wheel rate| <= {bound_rate:g} rad/s")
+            return
+        speeds = (low, high) if seg.axis is Axis.SPEED else (bound.partner,)
+        turns = (low, high) if seg.axis is Axis.TURN else (bound.partner,)
+        speed_key = key if seg.axis is Axis.SPEED else "with"
+        turn_key = key if seg.axis is Axis.TURN else "with"
+        for v in speeds:
+            if v > env.top_speed_mps * (1 + 1e-9) or -v > env.top_reverse_speed_mps * (1 + 1e-9):
+                raise fail(speed_key, v, f"between {-env.top_reverse_speed_mps:g} and {env.top_speed_mps:g} m/s")
+            for omega in turns:
+                available = env.max_turn_rate_at(v)
+                if abs(omega) > available * (1 + 1e-9):
+                    raise fail(turn_key, omega, f"|turn rate| <= {available:g} rad/s at {v:g} m/s")
+
+    def sample(self, period_s: float) -> Samples:
+        """Requests for cycles k = 0 .. ceil(duration / period) - 1, vectorized per segment."""
+        count = max(1, math.ceil(self.duration_s / period_s - 1e-9))
+        t = np.arange(count) * period_s
+        index = np.minimum(np.searchsorted([s.t_end_s for s in self.segments], t, side="right"),
+                           len(self.segments) - 1)
+        first = np.zeros(count)
+        second = np.zeros(count)
+        wheels = np.zeros(count, dtype=bool)
+        geometry = self.envelope.geometry
+        for i, bound in enumerate(self.segments):
+            rows = index == i
+            value = bound.wave(t[rows] - bound.t_start_s)
+            partner = np.full_like(value, bound.partner)
+            axis = bound.segment.axis
+            if axis is Axis.SPEED:
+                v, omega = value, partner
+            elif axis is Axis.TURN:
+                v, omega = partner, value
+            else:
+                left, right = (value, partner) if axis is Axis.LEFT else (partner, value)
+                v, omega = geometry.to_body(left, right)   # plain arithmetic: works on arrays
+            if bound.segment.bypass:
+                first[rows], second[rows] = geometry.to_wheels(v, omega)
+                wheels[rows] = True
+            else:
+                first[rows], second[rows] = v, omega
+        return Samples(t_s=t, segment=index, first=first, second=second, wheels=wheels)
