@@ -290,3 +290,13 @@ class Decoder:
             self.unknown_frames += 1
         else:
             self.malformed += 1     # a known frame type whose fields do not follow its grammar or are out of range
+
+
+class Codec(Decoder):
+    """`encode` and a Decoder in one object: the surface TemplateCodec shares, so the loop holds either kind."""
+
+    __slots__ = ()
+
+    @staticmethod
+    def encode(frame: Frame) -> bytes:
+        return encode(frame)

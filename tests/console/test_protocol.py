@@ -12,6 +12,7 @@ from console.protocol import (
     MAX_LINE,
     PROTOCOL_VERSION,
     RATE_MAX,
+    Codec,
     Decoder,
     Flags,
     Heartbeat,
@@ -256,3 +257,10 @@ def test_mutated_bytes_never_make_up_a_frame(sent, data):
     it = iter(expected)
     assert all(any(g == e for e in it) for g in got), "decoded frames must be a subsequence of those sent"
     assert len(got) >= len(expected) - len(changes)
+
+
+def test_codec_object_encodes_and_decodes():
+    codec = Codec()
+    frame = WheelCommand(5, 1.25, -1.25)
+    assert codec.feed(codec.encode(frame)) == [frame]
+    assert codec.feed(b"@1 H 5*0000\n") == [] and codec.crc_errors == 1
