@@ -1,0 +1,195 @@
+"""Session recording: one CSV row per control cycle plus a JSON sidecar saying how the numbers were made.
+
+The control loop must never wait on the disk, so `put` only appends to a bounded in-memory queue (a full queue drops the
+row and counts it) and a writer thread drains it. The writer writes whole lines in one system call at least every
+`flush_s` (0.1 s by default): a process killed outright leaves a parseable file missing at most the last 0.2 s.
+The sidecar (`<csv>.json`) is written on `close`, atomically, with the profile used, versions, link, start time,
+loop statistics and the dropped-row count.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import json
+import math
+import os
+import platform
+import threading
+from collections import deque
+from collections.abc import Sequence
+from datetime import datetime, timezone
+from pathlib import Path
+from typing import TYPE_CHECKING, Any
+
+import numpy
+import serial
+
+from console import __version__
+
+if TYPE_CHECKING:
+    from console.profile import Profile
+
+COLUMNS = ("t_s", "v_req_mps", "omega_req_radps", "v_mps", "omega_radps", "left_cmd_radps", "right_cmd_radps",
+           "left_meas_radps", "right_meas_radps", "state")
+POSE_COLUMNS = ("x_m", "y_m", "heading_rad")
+FORMAT = "diffdeck recording 1"
+RECORDINGS_DIR = Path("recordings")
+
+
+def default_path(profile: Profile, now: datetime | None = None) -> Path:
+    """`recordings/<profile file name>-<UTC timestamp>.csv`, never an existing file."""
+    stamp = (now or datetime.now(timezone.utc)).strftime("%Y%m%dT%H%M%SZ")
+    path = RECORDINGS_DIR / f"{profile.path.stem}-{stamp}.csv"
+    n = 1
+    while path.exists() or path.with_name(path.name + ".json").exists():
+        n += 1
+        path = RECORDINGS_DIR / f"{profile.path.stem}-{stamp}-{n}.csv"
+    return path
+
+
+def sidecar_path(csv_path: str | Path) -> Path:
+    csv_path = Path(csv_path)
+    return csv_path.with_name(csv_path.name + ".json")
+
+
+def _cell(value: object) -> str:
+    if value is None:
+        return ""
+    if isinstance(value, float):
+        return repr(value)
+    return str(value)
+
+
+def _json_safe(value: Any) -> Any:
+    """Profile data may hold TOML dates or non-finite floats; JSON has neither."""
+    if isinstance(value, dict):
+        return {str(k): _json_safe(v) for k, v in value.items()}
+    if isinstance(value, list | tuple):
+        return [_json_safe(v) for v in value]
+    if isinstance(value, float) and not math.isfinite(value):
+        return str(value)
+    if isinstance(value, bool | int | float | str) or value is None:
+        return value
+    if dataclasses.is_dataclass(value) and not isinstance(value, type):
+        return _json_safe({f.name: getattr(value, f.name) for f in dataclasses.fields(value)})
+    if hasattr(value, "value") and isinstance(value.value, str | int):   # enums
+        return value.value
+    return str(value)
+
+
+class Recorder:
+    """CSV rows from the loop (via `put`), written by a thread; `close(loop_stats)` finishes the file and the sidecar.
+
+    `pose` adds the true pose columns; by default it is on exactly for the in-process simulated robot (url "sim").
+    """
+
+    def __init__(self, path: str | Path, profile: Profile, link_url: str, *, pose: bool | None = None,
+                 queue_rows: int = 8192, flush_s: float = 0.1) -> None:
+        self.path = Path(path)
+        self.profile = profile
+        self.link_url = link_url
+        self.pose = link_url == "sim" if pose is None else pose
+        self.columns = COLUMNS + (POSE_COLUMNS if self.pose else ())
+        self.started = datetime.now(timezone.utc)
+        self.dropped = 0
+        self.written = 0
+        self.write_error: str | None = None
+        self._capacity = queue_rows
+        self._flush_s = flush_s
+        self._queue: deque[Sequence[object]] = deque()
+        self._closing = threading.Event()
+        self._closed = False
+        self.path.parent.mkdir(parents=True, exist_ok=True)
+        self._file = open(self.path, "wb", buffering=0)  # unbuffered: each batch of whole lines is one write()
+        self._write((",".join(self.columns) + "\n").encode())
+        self._thread = threading.Thread(target=self._run, name="diffdeck-recorder", daemon=True)
+        self._thread.start()
+
+    def put(self, row: Sequence[object]) -> None:
+        """Queue one row (values in `columns` order); never blocks: a full queue drops the row and counts it."""
+        if len(self._queue) >= self._capacity:
+            self.dropped += 1
+        else:
+            self._queue.append(row)   # deque.append is atomic: no lock shared with the writer
+
+    def _write(self, data: bytes) -> None:
+        view = memoryview(data)
+        while view:
+            view = view[self._file.write(view):]
+
+    def _drain(self) -> None:
+        lines = []
+        queue = self._queue
+        while True:
+            try:
+                row = queue.popleft()
+            except IndexError:
+                break
+            lines.append(",".join(map(_cell, row)))
+        if not lines or self.write_error is not None:
+            return
+        try:
+            self._write(("\n".join(lines) + "\n").encode())
+            self.written += len(lines)
+        except OSError as error:   # disk full, medium gone: keep the loop running, report it in the sidecar
+            self.write_error = f"{error.strerror or error} after {self.written} rows"
+            self.dropped += len(lines)
+
+    def _run(self) -> None:
+        while not self._closing.wait(self._flush_s):
+            self._drain()
+        self._drain()
+
+    def close(self, loop_stats: object | None = None, link_stats: object | None = None) -> Path:
+        """Write what is queued, close the CSV and write the sidecar; returns the sidecar's path. Idempotent."""
+        side = sidecar_path(self.path)
+        if self._closed:
+            return side
+        self._closed = True
+        self._closing.set()
+        self._thread.join()
+        self._file.close()
+        meta = {
+            "format": FORMAT,
+            "csv": self.path.name,
+            "columns": list(self.columns),
+            "started_utc": self.started.isoformat(timespec="milliseconds"),
+            "ended_utc": datetime.now(timezone.utc).isoformat(timespec="milliseconds"),
+            "link_url": self.link_url,
+            "versions": {"diffdeck": __version__, "python": platform.python_version(), "numpy": numpy.__version__,
+                         "pyserial": serial.__version__},
+            "profile": {"path": str(self.profile.path), "name": self.profile.name, "data": self.profile.data},
+            "loop": loop_stats,
+            "link": link_stats,
+            "rows_written": self.written,
+            "dropped_rows": self.dropped,
+            "write_error": self.write_error,
+        }
+        tmp = side.with_name(side.name + ".tmp")
+        tmp.write_text(json.dumps(_json_safe(meta), indent=2) + "\n", encoding="utf-8")
+        os.replace(tmp, side)
+        return side
+
+    def __enter__(self) -> Recorder:
+        return self
+
+    def __exit__(self, *exc: object) -> None:
+        self.close()
+
+
+def read_csv(path: str | Path) -> dict[str, numpy.ndarray]:
+    """A recording's columns by name: numbers as float arrays (empty cells -> nan), `state` as strings.
+
+    Reads whatever whole lines are there, so it also reads the file a killed process left behind.
+    """
+    with open(path, encoding="utf-8") as file:
+        header = file.readline().rstrip("\n").split(",")
+        rows = [line.rstrip("\n").split(",") for line in file if line.strip()]
+    columns: dict[str, numpy.ndarray] = {}
+    for i, name in enumerate(header):
+        cells = [row[i] for row in rows]
+        if name == "state":
+            columns[name] = numpy.array(cells, dtype=str)
+        else:
+            columns[name] = numpy.array([float(c) if c else math.nan for c in cells])
+    return columns

@@ -1,0 +1,166 @@
+"""Session recording: header, sidecar, rows, dropped rows under a stalled disk, and what a SIGKILL leaves behind."""
+
+from __future__ import annotations
+
+import json
+import os
+import platform
+import signal
+import subprocess
+import sys
+import textwrap
+import threading
+import time
+import tomllib
+from datetime import datetime, timezone
+from pathlib import Path
+
+import numpy
+import serial
+
+from console.loop import LoopStats
+from console.profile import load_profile
+from console.record import Recorder, default_path, read_csv, sidecar_path
+
+ROOT = Path(__file__).resolve().parents[2]
+WREN = ROOT / "profiles" / "wren.toml"
+# The header as the issue and the contract spell it (issue 3, "Recording"; /work/contracts.md, console/record.py).
+HEADER = ("t_s,v_req_mps,omega_req_radps,v_mps,omega_radps,left_cmd_radps,right_cmd_radps,left_meas_radps,"
+          "right_meas_radps,state")
+POSE = ",x_m,y_m,heading_rad"
+
+
+def test_header_on_hardware_and_on_the_simulated_robot(tmp_path: Path) -> None:
+    profile = load_profile(WREN)
+    for url, expected in (("/dev/ttyACM0", HEADER), ("socket://127.0.0.1:9", HEADER), ("sim", HEADER + POSE)):
+        path = tmp_path / f"{len(expected)}-{url.replace('/', '_').replace(':', '_')}.csv"
+        Recorder(path, profile, url).close()
+        assert path.read_text(encoding="utf-8").splitlines() == [expected]
+
+
+def test_rows_read_back_exactly(tmp_path: Path) -> None:
+    profile = load_profile(WREN)
+    path = tmp_path / "rows.csv"
+    recorder = Recorder(path, profile, "sim")
+    rng = numpy.random.default_rng(3)
+    rows = []
+    for k in range(500):
+        values = [float(x) for x in rng.normal(size=12)]
+        meas = (None, None) if k % 7 == 0 else (values[7], values[8])   # no telemetry yet -> empty cells
+        row = (k * 0.01, *values[:4], values[4], values[5], *meas, "armed", *values[9:])
+        rows.append(row)
+        recorder.put(row)
+    recorder.close()
+    columns = read_csv(path)
+    assert list(columns) == (HEADER + POSE).split(",")
+    for i, name in enumerate(columns):
+        if name == "state":
+            assert set(columns[name]) == {"armed"}
+            continue
+        expected = numpy.array([numpy.nan if row[i] is None else row[i] for row in rows])
+        numpy.testing.assert_array_equal(columns[name], expected)   # repr() of a float reads back exactly
+
+
+def test_sidecar_has_profile_versions_link_start_time_and_loop_statistics(tmp_path: Path) -> None:
+    profile = load_profile(WREN)
+    path = tmp_path / "session.csv"
+    before = datetime.now(timezone.utc)
+    recorder = Recorder(path, profile, "/dev/ttyACM0")
+    after = datetime.now(timezone.utc)
+    for k in range(10):
+        recorder.put((k * 0.01, 0.0, 0.0, 0.0, 0.0, 0.0, 0.0, 0.0, 0.0, "disarmed"))
+    stats = LoopStats(period_s=0.01, cycles=10, overruns=1, period_error_p50_s=1e-5, period_error_p99_s=2e-4,
+                      period_error_max_s=3e-4, work_p99_s=1e-4)
+    side = recorder.close(stats)
+    assert side == sidecar_path(path) == tmp_path / "session.csv.json"
+    meta = json.loads(side.read_text(encoding="utf-8"))
+    with open(WREN, "rb") as file:
+        assert meta["profile"]["data"] == tomllib.load(file)    # the profile as read, via the stdlib TOML reader
+    assert meta["versions"] == {"diffdeck": "0.1.0", "python": platform.python_version(),
+                                "numpy": numpy.__version__, "pyserial": serial.__version__}
+    assert meta["link_url"] == "/dev/ttyACM0"
+    started = datetime.fromisoformat(meta["started_utc"])       # ISO 8601 with its UTC offset
+    assert started.utcoffset().total_seconds() == 0
+    assert before.replace(microsecond=before.microsecond // 1000 * 1000) <= started <= after
+    assert meta["loop"] == {"period_s": 0.01, "cycles": 10, "overruns": 1, "period_error_p50_s": 1e-5,
+                            "period_error_p99_s": 2e-4, "period_error_max_s": 3e-4, "work_p99_s": 1e-4}
+    assert meta["rows_written"] == 10 and meta["dropped_rows"] == 0
+
+
+def test_a_stalled_disk_drops_rows_and_counts_them(tmp_path: Path) -> None:
+    """The writer blocks on a FIFO nobody reads (a stand-in for a stalled disk): put() must not block; every row
+    is either written or counted as dropped, and the sidecar says how many were dropped."""
+    fifo = tmp_path / "stalled.csv"
+    os.mkfifo(fifo)
+    reader = os.open(fifo, os.O_RDONLY | os.O_NONBLOCK)
+    recorder = Recorder(fifo, load_profile(WREN), "/dev/ttyACM0", queue_rows=64)
+    n = 50_000
+    for k in range(n):
+        recorder.put((k * 0.001, 0.1, 0.2, 0.3, 0.4, 0.5, 0.6, 0.7, 0.8, "armed"))
+    assert recorder.dropped > 0
+    closer = threading.Thread(target=recorder.close)
+    closer.start()
+    received = bytearray()
+    while True:
+        try:
+            chunk = os.read(reader, 1 << 16)
+        except BlockingIOError:
+            time.sleep(0.001)
+            continue
+        if not chunk and not closer.is_alive():
+            break
+        received += chunk
+    closer.join()
+    os.close(reader)
+    lines = received.decode().splitlines()
+    assert lines[0] == HEADER
+    meta = json.loads(sidecar_path(fifo).read_text(encoding="utf-8"))
+    assert len(lines) - 1 == recorder.written == meta["rows_written"]
+    assert recorder.written + recorder.dropped == n
+    assert meta["dropped_rows"] == recorder.dropped > 0
+
+
+CHILD = textwrap.dedent("""
+    import sys, time
+    from console.profile import load_profile
+    from console.record import Recorder
+    recorder = Recorder(sys.argv[1], load_profile(sys.argv[2]), "sim")
+    print("recording", flush=True)
+    k = 0
+    while True:
+        # t_s is CLOCK_MONOTONIC, shared by every process on the machine: the parent compares it with its kill time
+        recorder.put((time.monotonic(), 0.1 * k, 0.2, 0.3, 0.4, 0.5, 0.6, 0.7, 0.8, "armed", 1.0, 2.0, 3.0))
+        k += 1
+        time.sleep(0.001)
+""")
+
+
+def test_sigkill_leaves_a_parseable_file_missing_at_most_the_last_0_2_s(tmp_path: Path) -> None:
+    path = tmp_path / "killed.csv"
+    child = subprocess.Popen([sys.executable, "-c", CHILD, str(path), str(WREN)], cwd=ROOT, stdout=subprocess.PIPE,
+                             text=True)
+    assert child.stdout.readline().strip() == "recording"
+    time.sleep(0.7)
+    killed_at = time.monotonic()
+    child.send_signal(signal.SIGKILL)
+    child.wait()
+    child.stdout.close()
+    text = path.read_text(encoding="utf-8")
+    assert text.endswith("\n")                          # whole lines only: never a half-written row
+    columns = read_csv(path)
+    assert len(columns["t_s"]) > 100
+    for name, values in columns.items():
+        assert name == "state" or not numpy.isnan(values).any()
+    assert killed_at - columns["t_s"][-1] <= 0.2       # issue 3: at most the last 0.2 s missing
+    assert not sidecar_path(path).exists()              # no sidecar: the process never closed the recording
+
+
+def test_default_path_is_under_recordings_with_profile_name_and_utc_time(tmp_path: Path, monkeypatch) -> None:
+    monkeypatch.chdir(tmp_path)
+    profile = load_profile(WREN)
+    when = datetime(2026, 12, 2, 1, 2, 3, tzinfo=timezone.utc)
+    first = default_path(profile, when)
+    assert first == Path("recordings/wren-20261202T010203Z.csv")
+    Recorder(first, profile, "sim").close()
+    second = default_path(profile, when)                # never overwrites an earlier session
+    assert second != first and second.parent == Path("recordings")
