@@ -34,6 +34,8 @@ if TYPE_CHECKING:
 TWO_PI = 2.0 * math.pi
 _TIME_EPS_S = 1e-9
 """Slack when comparing accumulated step times with the instant a delayed command takes effect."""
+_SETTLED_RADPS = 1e-9
+"""A wheel within this of its target rate is taken as there (the exponential never gets there; real wheels stick)."""
 _STRAIGHT_HALF_ANGLE_RAD = 1e-6
 """Below this half heading change per step the chord factor sin(h)/h uses its series (straight-line limit)."""
 
@@ -53,6 +55,23 @@ class PlantState:
     x_m: float
     y_m: float
     heading_rad: float
+
+
+def arc_step(
+    x_m: float, y_m: float, heading_rad: float, v_mps: float, omega_radps: float, dt_s: float
+) -> tuple[float, float, float]:
+    """Pose after moving for dt at constant v and omega: exactly on the arc (a straight line as omega -> 0).
+
+    The chord of the arc has length v*dt*sin(h)/h with h = omega*dt/2 and points along the mean heading
+    heading + h; this form has no 1/omega, so it stays exact and finite through omega = 0.
+    """
+    half = 0.5 * omega_radps * dt_s
+    if -_STRAIGHT_HALF_ANGLE_RAD < half < _STRAIGHT_HALF_ANGLE_RAD:
+        chord = v_mps * dt_s * (1.0 - half * half / 6.0)
+    else:
+        chord = v_mps * dt_s * math.sin(half) / half
+    mid = heading_rad + half
+    return x_m + chord * math.cos(mid), y_m + chord * math.sin(mid), heading_rad + 2.0 * half
 
 
 class _Motor:
@@ -119,7 +138,8 @@ class _Motor:
             rest = dt - t_linear
         decay = math.exp(-rest / tau) if tau > 0.0 else 0.0
         travelled += u * rest - error * tau * (1.0 - decay)
-        self.rate = u - error * decay
+        error *= decay
+        self.rate = u if -_SETTLED_RADPS < error < _SETTLED_RADPS else u - error
         self.angle += travelled
         return travelled / dt
 
@@ -141,6 +161,10 @@ class Plant:
         )
         self._left = _Motor(*motor)
         self._right = _Motor(*motor)
+        # Wiring between the firmware's command channels and the motors (faults of the polarity check).
+        self._swap = sim.swap_motors
+        self._left_gain = 0.0 if sim.dead_left else (-1.0 if sim.invert_left_motor else 1.0) * sim.unit_scale
+        self._right_gain = 0.0 if sim.dead_right else (-1.0 if sim.invert_right_motor else 1.0) * sim.unit_scale
         self._rng = np.random.default_rng(sim.seed)
         self._ticks_per_rad = sim.encoder_ticks_per_rev / TWO_PI
         self.t_s = 0.0
@@ -170,30 +194,24 @@ class Plant:
 
     def advance(self, dt_s: float, left_cmd_radps: float, right_cmd_radps: float) -> None:
         """Advance by dt with the firmware's channel commands (wheel rad/s); no measurement is made."""
-        sim = self.sim
-        if sim.swap_motors:
+        if self._swap:
             left_cmd_radps, right_cmd_radps = right_cmd_radps, left_cmd_radps
-        scale = sim.unit_scale
-        left_u = 0.0 if sim.dead_left else (-scale if sim.invert_left_motor else scale) * left_cmd_radps
-        right_u = 0.0 if sim.dead_right else (-scale if sim.invert_right_motor else scale) * right_cmd_radps
+        left_u = self._left_gain * left_cmd_radps
+        right_u = self._right_gain * right_cmd_radps
         t = self.t_s
         left_mean = self._left.step(t, dt_s, left_u)
         right_mean = self._right.step(t, dt_s, right_u)
         self.t_s = t + dt_s
         left_speed = self.left_radius_m * left_mean
         right_speed = self.right_radius_m * right_mean
-        v = 0.5 * (left_speed + right_speed)
-        dtheta = (right_speed - left_speed) / self.track_m * dt_s
-        half = 0.5 * dtheta
-        # Exact arc: chord length v*dt*sin(half)/half along the mean heading (straight line as half -> 0).
-        if -_STRAIGHT_HALF_ANGLE_RAD < half < _STRAIGHT_HALF_ANGLE_RAD:
-            chord = v * dt_s * (1.0 - half * half / 6.0)
-        else:
-            chord = v * dt_s * math.sin(half) / half
-        mid = self.heading_rad + half
-        self.x_m += chord * math.cos(mid)
-        self.y_m += chord * math.sin(mid)
-        self.heading_rad += dtheta
+        self.x_m, self.y_m, self.heading_rad = arc_step(
+            self.x_m,
+            self.y_m,
+            self.heading_rad,
+            0.5 * (left_speed + right_speed),
+            (right_speed - left_speed) / self.track_m,
+            dt_s,
+        )
 
     def measure(self) -> PlantState:
         """What the encoders report now, per firmware channel (noise drawn here, once per measurement)."""

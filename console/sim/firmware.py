@@ -1,0 +1,259 @@
+"""The simulated robot's firmware: the robot side of the wire protocol (or of a firmware template) over a transport end.
+
+Behaviour (what PROTOCOL.md asks of real firmware; the flags are `console.protocol.Flags`):
+- Power-up: STOPPED, motors at zero, motion watchdog not armed.
+- Release: a valid W frame with both wheels exactly 0 clears STOPPED, WATCHDOG and POWER_OFF and arms the watchdog
+  (never while FAULT is set). The firmware never restarts into motion by itself: a W frame with motion while STOPPED
+  is ignored (it still counts as received and is echoed).
+- Running: W frames set the wheel commands (firmware unit -> wheel rad/s); SATURATED is set while a command exceeds
+  the motors' top rate (the plant clamps it).
+- Watchdog: no valid W frame for more than link.watchdog_s while running -> WATCHDOG and STOPPED latched, the
+  commands ramp to zero at the motors' torque limit, then drive power goes off (POWER_OFF), as for category 1.
+  Heartbeats and stop frames never feed it (they carry no motion).
+- Stop frames: category 0 -> wheels to zero at once (idealized power removal), POWER_OFF; 1 -> ramp to zero at the
+  torque limit, then POWER_OFF; 2 -> the same ramp, power kept. A stronger category overrides a weaker one in progress.
+- Telemetry every 1 / sim.telemetry_rate_hz of simulated time, whether or not anybody listens: own seq, the seq of the
+  last valid console frame (any type), measured wheel rates (firmware unit), encoder counts (int32, wrapping),
+  battery voltage, flags.
+
+The firmware converts only the UNIT (`WheelUnits.from_motor` with the console-side invert and trim taken out): the
+console's polarity and trim settings are corrections for the wiring, which lives in the plant (`SimConfig` faults).
+
+A software stop, in this simulation as on a real robot, is not a safety function.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import math
+from typing import TYPE_CHECKING
+
+from console.errors import LinkLost
+from console.protocol import (
+    SEQ_MODULUS,
+    Decoder,
+    Flags,
+    Frame,
+    Heartbeat,
+    StopCommand,
+    Telemetry,
+    WheelCommand,
+    encode,
+)
+from console.sim.plant import Plant
+from console.transport import Transport, memory_pair
+
+if TYPE_CHECKING:
+    from console.profile import Profile
+
+SUBSTEP_S = 0.001
+"""Internal plant step: advance(dt) runs ceil(dt / SUBSTEP_S) equal sub-steps."""
+SAG_AT_FULL_TORQUE = 0.05
+"""Battery sag (fraction of the rest voltage) with both motors at the torque limit: an invented, simple load model."""
+SAG_AT_FULL_SPEED = 0.02
+"""Battery sag (fraction) with both wheels at the top rate (friction and back-EMF losses; invented, simple)."""
+_INT32 = 1 << 32
+
+_WATCHDOG = int(Flags.WATCHDOG)
+_FAULT = int(Flags.FAULT)
+_STOPPED = int(Flags.STOPPED)
+_POWER_OFF = int(Flags.POWER_OFF)
+_SATURATED = int(Flags.SATURATED)
+_RELEASABLE = _STOPPED | _WATCHDOG | _POWER_OFF
+
+
+class _DiffdeckCodec:
+    """Robot side of our own protocol: decode console frames, encode telemetry."""
+
+    def __init__(self) -> None:
+        self._decoder = Decoder()
+        self.feed = self._decoder.feed
+
+    @staticmethod
+    def encode(frame: Telemetry) -> bytes:
+        return encode(frame)
+
+
+def _wrap_int32(count: int) -> int:
+    return (count + _INT32 // 2) % _INT32 - _INT32 // 2
+
+
+class SimRobot:
+    """The simulated robot: plant + firmware behind one transport end. Drive it with `advance(dt_s)`.
+
+    Without a transport it makes an in-memory pair and keeps the other end in `console_end`.
+    """
+
+    def __init__(self, profile: Profile, transport: Transport | None = None) -> None:
+        if transport is None:
+            self.console_end: Transport | None
+            self.console_end, transport = memory_pair()
+        else:
+            self.console_end = None
+        self.transport: Transport = transport
+        self.profile = profile
+        sim = profile.sim
+        self.plant = Plant(profile.geometry, sim)
+        self._units = dataclasses.replace(profile.units, invert_left=False, invert_right=False,
+                                          trim_left=1.0, trim_right=1.0)
+        if profile.link.protocol == "template":
+            from console.templates import TemplateRobotCodec   # only template robots need it
+
+            self._codec = TemplateRobotCodec(profile.link.template)
+        else:
+            self._codec = _DiffdeckCodec()
+        self._watchdog_s = profile.link.watchdog_s
+        self._ramp_radps2 = sim.wheel_accel_radps2
+        self._max_rate = sim.max_wheel_rate_radps
+        self._period_s = 1.0 / sim.telemetry_rate_hz
+        self.t_s = 0.0
+        self._next_telemetry_s = self._period_s
+        self._left_cmd = 0.0           # channel commands driving the motors, wheel rad/s
+        self._right_cmd = 0.0
+        self._flags = _STOPPED
+        self._running = False          # released: follows W frames, watchdog armed
+        self._stop_category: int | None = None   # ramp-down in progress or held after a stop (1 or 2)
+        self._last_command_s = 0.0
+        self._echo_seq = 0
+        self._tx_seq = 0
+        self._last_wheel = self.plant.wheel_radps
+        self.link_open = True
+        self.telemetry_dropped = 0     # frames the transport refused (the other end stopped reading)
+
+    # -- what tests, the control loop and the UI may look at -----------------------------------------------------
+    @property
+    def pose(self) -> tuple[float, float, float]:
+        """True pose (x_m, y_m, heading_rad)."""
+        return self.plant.pose
+
+    @property
+    def flags(self) -> Flags:
+        return Flags(self._flags)
+
+    def set_fault(self, active: bool) -> None:
+        """Inject (or clear) a firmware-detected fault: FAULT set, wheels to zero at once, no release until cleared."""
+        if active:
+            self._flags |= _FAULT
+            self._halt()
+        else:
+            self._flags &= ~_FAULT
+
+    # -- firmware ------------------------------------------------------------------------------------------------
+    def advance(self, dt_s: float) -> None:
+        """Take in what arrived, then step the plant by dt in equal sub-steps, sending telemetry when it is due."""
+        self._receive()
+        if dt_s <= 0.0:
+            return
+        n = max(1, math.ceil(dt_s / SUBSTEP_S - 1e-9))
+        h = dt_s / n
+        step_plant = self.plant.advance
+        t = self.t_s
+        for _ in range(n):
+            if self._stop_category is not None:
+                self._ramp_down(h)
+            step_plant(h, self._left_cmd, self._right_cmd)
+            t += h
+            if self._running and t - self._last_command_s > self._watchdog_s:
+                self._flags |= _WATCHDOG
+                self._begin_stop(1)
+            if t >= self._next_telemetry_s - 1e-9:
+                self._next_telemetry_s += self._period_s
+                self._send_telemetry()
+        self.t_s = t
+
+    def _receive(self) -> None:
+        if not self.link_open:
+            return
+        try:
+            data = self.transport.read()
+        except LinkLost:
+            self.link_open = False   # the cable is gone: the watchdog will stop the motors
+            return
+        if data:
+            for frame in self._codec.feed(data):
+                self._apply(frame)
+
+    def _apply(self, frame: Frame) -> None:
+        kind = type(frame)
+        if kind is WheelCommand:
+            self._echo_seq = frame.seq
+            self._last_command_s = self.t_s
+            self._command(*self._units.from_motor(frame.left, frame.right), frame.left == 0.0 and frame.right == 0.0)
+        elif kind is StopCommand:
+            self._echo_seq = frame.seq
+            if frame.category == 0:
+                self._halt()
+            else:
+                self._begin_stop(frame.category)
+        elif kind is Heartbeat:
+            self._echo_seq = frame.seq
+        # Telemetry from the console side is not meant for us: ignored.
+
+    def _command(self, left_radps: float, right_radps: float, at_rest: bool) -> None:
+        if not self._running:
+            if not (at_rest and self._flags & _FAULT == 0):
+                return                       # held: motion needs a release first
+            self._flags &= ~_RELEASABLE
+            self._running = True
+            self._stop_category = None
+        self._left_cmd = left_radps
+        self._right_cmd = right_radps
+        if abs(left_radps) > self._max_rate or abs(right_radps) > self._max_rate:
+            self._flags |= _SATURATED
+        else:
+            self._flags &= ~_SATURATED
+
+    def _begin_stop(self, category: int) -> None:
+        self._running = False
+        self._flags = (self._flags | _STOPPED) & ~_SATURATED
+        if self._flags & _POWER_OFF:
+            return                           # already off: nothing weaker may bring power back
+        if self._stop_category is None or category < self._stop_category:
+            self._stop_category = category
+
+    def _halt(self) -> None:
+        """Category 0 (and faults): wheels to zero at once, drive power off."""
+        self._running = False
+        self._stop_category = None
+        self._left_cmd = self._right_cmd = 0.0
+        self._flags = (self._flags | _STOPPED | _POWER_OFF) & ~_SATURATED
+        self.plant.halt()
+
+    def _ramp_down(self, h: float) -> None:
+        """Commands toward zero at the torque limit; category 1 removes power once they are there."""
+        step = self._ramp_radps2 * h
+        self._left_cmd = math.copysign(max(abs(self._left_cmd) - step, 0.0), self._left_cmd)
+        self._right_cmd = math.copysign(max(abs(self._right_cmd) - step, 0.0), self._right_cmd)
+        if self._left_cmd == 0.0 and self._right_cmd == 0.0 and self._stop_category == 1:
+            self._flags |= _POWER_OFF
+            self._stop_category = None
+
+    def _battery_v(self) -> float:
+        sim = self.profile.sim
+        left, right = self.plant.wheel_radps
+        last_left, last_right = self._last_wheel
+        self._last_wheel = (left, right)
+        accel = (abs(left - last_left) + abs(right - last_right)) / (2.0 * self._period_s * sim.wheel_accel_radps2)
+        speed = (abs(left) + abs(right)) / (2.0 * sim.max_wheel_rate_radps)
+        return sim.battery_v * (1.0 - SAG_AT_FULL_TORQUE * min(accel, 1.0) - SAG_AT_FULL_SPEED * min(speed, 1.0))
+
+    def _send_telemetry(self) -> None:
+        state = self.plant.measure()
+        left, right = self._units.to_motor(state.left_radps, state.right_radps)
+        frame = Telemetry(
+            seq=self._tx_seq,
+            echo_seq=self._echo_seq,
+            left=left,
+            right=right,
+            left_ticks=_wrap_int32(state.left_ticks),
+            right_ticks=_wrap_int32(state.right_ticks),
+            battery_v=self._battery_v(),
+            flags=self._flags,
+        )
+        self._tx_seq = (self._tx_seq + 1) % SEQ_MODULUS
+        if not self.link_open:
+            return
+        try:
+            self.transport.write(self._codec.encode(frame))
+        except LinkLost:
+            self.telemetry_dropped += 1
