@@ -16,32 +16,24 @@ Behaviour (what PROTOCOL.md asks of real firmware; the flags are `console.protoc
   last valid console frame (any type), measured wheel rates (firmware unit), encoder counts (int32, wrapping),
   battery voltage, flags.
 
-The firmware converts only the UNIT (`WheelUnits.from_motor` with the console-side invert and trim taken out): the
-console's polarity and trim settings are corrections for the wiring, which lives in the plant (`SimConfig` faults).
+The firmware converts only the UNIT (`WheelUnits.from_motor` / `to_motor` on the profile's unit, gear ratio, ticks and
+full-duty rate alone). The profile's polarity, swap and trim keys are the CONSOLE's corrections for the wiring; the
+wiring itself lives in the plant (`SimConfig` faults). Real firmware does not know the console's corrections either,
+so a fault in [sim] plus the matching fix in [units] drives correctly - the polarity check relies on that.
 
 A software stop, in this simulation as on a real robot, is not a safety function.
 """
 
 from __future__ import annotations
 
-import dataclasses
 import math
 from typing import TYPE_CHECKING
 
 from console.errors import LinkLost
-from console.protocol import (
-    SEQ_MODULUS,
-    Decoder,
-    Flags,
-    Frame,
-    Heartbeat,
-    StopCommand,
-    Telemetry,
-    WheelCommand,
-    encode,
-)
+from console.protocol import SEQ_MODULUS, Codec, Flags, Frame, Heartbeat, StopCommand, Telemetry, WheelCommand
 from console.sim.plant import Plant
 from console.transport import Transport, memory_pair
+from shaping.units import WheelUnits
 
 if TYPE_CHECKING:
     from console.profile import Profile
@@ -60,18 +52,6 @@ _STOPPED = int(Flags.STOPPED)
 _POWER_OFF = int(Flags.POWER_OFF)
 _SATURATED = int(Flags.SATURATED)
 _RELEASABLE = _STOPPED | _WATCHDOG | _POWER_OFF
-
-
-class _DiffdeckCodec:
-    """Robot side of our own protocol: decode console frames, encode telemetry."""
-
-    def __init__(self) -> None:
-        self._decoder = Decoder()
-        self.feed = self._decoder.feed
-
-    @staticmethod
-    def encode(frame: Telemetry) -> bytes:
-        return encode(frame)
 
 
 def _wrap_int32(count: int) -> int:
@@ -94,14 +74,14 @@ class SimRobot:
         self.profile = profile
         sim = profile.sim
         self.plant = Plant(profile.geometry, sim)
-        self._units = dataclasses.replace(profile.units, invert_left=False, invert_right=False,
-                                          trim_left=1.0, trim_right=1.0)
+        units = profile.units    # the unit only: polarity, swap and trim are the console's corrections
+        self._units = WheelUnits(units.unit, units.ticks_per_rev, units.gear_ratio, units.full_duty_radps)
         if profile.link.protocol == "template":
             from console.templates import TemplateRobotCodec   # only template robots need it
 
             self._codec = TemplateRobotCodec(profile.link.template)
         else:
-            self._codec = _DiffdeckCodec()
+            self._codec = Codec()
         self._watchdog_s = profile.link.watchdog_s
         self._ramp_radps2 = sim.wheel_accel_radps2
         self._max_rate = sim.max_wheel_rate_radps

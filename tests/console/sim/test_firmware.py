@@ -95,17 +95,27 @@ def test_commands_in_firmware_units_become_wheel_rates_and_come_back_as_telemetr
     assert last.left_ticks == pytest.approx(left_angle * 1440 / (2.0 * math.pi), abs=200)
 
 
-def test_console_side_polarity_and_trim_are_not_applied_again_by_the_firmware() -> None:
-    """[units] invert_left corrects a motor wired backwards ([sim] invert_left_motor): together they drive forward."""
-    profile = _profile(invert_left_motor=True)
-    profile = dataclasses.replace(profile, units=dataclasses.replace(profile.units, invert_left=True))
+@pytest.mark.parametrize(
+    ("fault", "fix"),
+    [
+        ({}, {}),
+        ({"invert_left_motor": True}, {"invert_left": True, "invert_left_encoder": True}),
+        ({"invert_right_encoder": True}, {"invert_right_encoder": True}),
+        ({"invert_left_motor": True, "invert_left_encoder": True}, {"invert_left": True}),   # a mirrored side
+        ({"swap_motors": True}, {"swap_motors": True}),
+    ],
+    ids=["none", "motor", "encoder", "mirrored", "swap"],
+)
+def test_a_wiring_fault_with_its_profile_fix_drives_and_measures_true(fault: dict[str, bool],
+                                                                      fix: dict[str, bool]) -> None:
+    """The firmware applies none of the console's [units] corrections: the fix in the profile undoes the fault."""
+    profile = _profile(**fault)
+    profile = dataclasses.replace(profile, units=dataclasses.replace(profile.units, **fix))
     console = _released(profile)
-    left_cmd, right_cmd = profile.units.to_motor(4.0, 4.0)      # what the console sends for 4 rad/s forward
-    assert left_cmd < 0.0 < right_cmd
-    console.run(2.0, WheelCommand, left_cmd, right_cmd)
-    assert console.robot.plant.wheel_radps == pytest.approx((4.0, 4.0), rel=1e-6)
-    x, y, _ = console.robot.pose
-    assert x > 0.4 and abs(y) < 1e-9   # about 4 rad/s * 62 mm * 2 s, straight ahead
+    console.run(2.0, WheelCommand, *profile.units.to_motor(4.0, 6.0))   # what the console sends for (4, 6) rad/s
+    assert console.robot.plant.wheel_radps == pytest.approx((4.0, 6.0), rel=1e-6)
+    last = console.telemetry[-1]
+    assert profile.units.measured_from_motor(last.left, last.right) == pytest.approx((4.0, 6.0), abs=1e-3)
 
 
 def test_watchdog_trips_after_watchdog_time_sets_the_flag_and_brings_the_motors_to_zero() -> None:
