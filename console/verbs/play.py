@@ -1,0 +1,270 @@
+"""`diffdeck play PROFILE REQUESTS.csv`: stream a request trace through the control loop to the robot and record it.
+
+The headless way to rehearse a manoeuvre on the simulated robot, or to repeat one exactly on a real robot on the
+bench. The trace is the same CSV as `shape` reads (each row held until the next row's time). Everything is checked
+before the link is opened, and the recording is only created once the link is up.
+
+Exit codes: 0 the trace was played and the robot brought to a controlled stop; 2 bad input; 3 link lost; 4 the robot
+reported a fault or a watchdog trip; 130 interrupted by Ctrl-C (the robot was brought to a controlled stop and the
+recording kept: the trace was not played to its end, so scripts must not mistake it for a completed run).
+"""
+
+from __future__ import annotations
+
+import argparse
+import bisect
+import signal
+import sys
+import time
+from pathlib import Path
+from types import FrameType
+
+from console.errors import InputError, LinkLost, RobotFault
+from console.loop import ControlLoop, SafetyState, Snapshot, StopCause, VirtualClock, WallClock
+from console.profile import load_profile
+from console.record import Recorder, default_path, sidecar_path
+from console.sim.firmware import SimRobot
+from console.transport import memory_pair, open_url
+from console.verbs.shape import TIME_EPS_S, Requests, read_requests
+from shaping.shaper import StopKind
+
+NAME = "play"
+HELP = "stream a request trace through the control loop to the robot (real time) and record the session"
+ORDER = 40
+
+COUNTDOWN_S = 3
+POLL_S = 0.01
+FIRST_TELEMETRY_GRACE_S = 1.0
+"""Beyond the profile's telemetry timeout, how long a freshly opened link may take to answer (adapters reset)."""
+SETTLE_LIMIT_S = 60.0
+"""After the last row, the longest the request is held while waiting for the shaped output to settle."""
+STOP_LIMIT_S = 60.0
+EXIT_INTERRUPTED = 130
+ESCALATION = (StopKind.CONTROLLED, StopKind.FAST, StopKind.IMMEDIATE)
+
+CAUTIONS = """\
+Before anything moves:
+  * Bench test: lift the robot so that its wheels are clear of the ground.
+  * Keep a hardware emergency stop within reach. Ctrl-C here, like every software stop, is not a safety
+    function: it cannot stop a robot whose firmware, cable or drive has failed.
+  * Clear the robot's path, and work to your site's safety rules, the regulations where you are and the
+    practice of qualified people.
+Ctrl-C before arming aborts; while moving, Ctrl-C gives a controlled stop (again: fast stop, a third time: zero)."""
+
+
+def add_arguments(parser: argparse.ArgumentParser) -> None:
+    parser.add_argument("profile", metavar="PROFILE", help="robot profile (TOML)")
+    parser.add_argument("requests", metavar="REQUESTS.csv",
+                        help="request trace, header t_s,v_mps,omega_radps (the same file `shape` reads)")
+    parser.add_argument("--link", metavar="URL",
+                        help='override the profile\'s link url: "sim" (built-in simulated robot), a device path or '
+                             "a pyserial URL")
+    parser.add_argument("--record", metavar="OUT.csv",
+                        help="recording path (default recordings/<profile>-<UTC time>.csv); a .json sidecar is added")
+    parser.add_argument("--fast", action="store_true",
+                        help="virtual clock, as fast as the CPU allows (only with the simulated robot)")
+    parser.add_argument("--yes", action="store_true", help="skip the safety cautions and the countdown")
+
+
+class _Player:
+    """Feeds the trace to the loop from inside its cycle (`on_cycle`), so every cycle gets the row in force."""
+
+    def __init__(self, requests: Requests) -> None:
+        self.requests = requests
+        self.loop: ControlLoop | None = None
+        self.go = False
+        self.start_s: float | None = None
+        self.trace_s = 0.0
+
+    def on_cycle(self, t_s: float) -> None:
+        if self.start_s is None:
+            if not self.go:
+                return
+            self.start_s = t_s
+        self.trace_s = t_s - self.start_s
+        r = self.requests
+        i = bisect.bisect_right(r.t_s, self.trace_s + TIME_EPS_S) - 1
+        self.loop.request(*((r.v_mps[i], r.omega_radps[i]) if i >= 0 else (0.0, 0.0)))
+
+    @property
+    def last_row_passed(self) -> bool:
+        return self.start_s is not None and self.trace_s >= self.requests.t_s[-1] - TIME_EPS_S
+
+
+class _Interrupts:
+    """Ctrl-C as a counter the player polls (never an exception in the middle of a cycle)."""
+
+    def __init__(self) -> None:
+        self.count = 0
+        self._previous = signal.signal(signal.SIGINT, self._handle)
+
+    def _handle(self, signum: int, frame: FrameType | None) -> None:
+        self.count += 1
+
+    def restore(self) -> None:
+        signal.signal(signal.SIGINT, self._previous)
+
+
+class _Run:
+    """One play session: the loop on a thread (wall clock) or driven cycle by cycle (virtual clock)."""
+
+    def __init__(self, loop: ControlLoop, fast: bool, interrupts: _Interrupts) -> None:
+        self.loop, self.fast, self.interrupts = loop, fast, interrupts
+        self.cycles_per_poll = max(1, round(POLL_S * loop.profile.link.rate_hz))
+
+    def wait(self, seconds: float) -> None:
+        if self.fast:
+            self.loop.run_cycles(max(1, round(seconds * self.loop.profile.link.rate_hz)))
+        else:
+            time.sleep(seconds)
+        if self.loop.failure is not None:
+            raise self.loop.failure
+
+    def poll(self) -> Snapshot:
+        self.wait(POLL_S if not self.fast else 1.0 / self.loop.profile.link.rate_hz)
+        return self.loop.snapshot()
+
+    def wait_for(self, done, limit_s: float) -> Snapshot | None:
+        deadline = self.loop.snapshot().t_s + limit_s
+        while True:
+            snapshot = self.poll()
+            if done(snapshot):
+                return snapshot
+            if snapshot.t_s >= deadline or self.interrupts.count:
+                return None
+
+
+def _check_output(path: str | None) -> None:
+    if path is None:
+        return
+    folder = Path(path).resolve().parent
+    if not folder.is_dir():
+        raise InputError("command line", "--record", path, f"a file in an existing folder ({folder} is not one)")
+
+
+def _fault_error(snapshot: Snapshot, url: str, record: Path) -> LinkLost | RobotFault | None:
+    """The error a stop the player did not ask for ends the run with (None: the stop was ours)."""
+    cause = snapshot.cause
+    kept = f"; recording kept in {record}"
+    if cause is StopCause.LINK_LOST:
+        text = next((e.text for e in reversed(snapshot.events) if e.kind == "link"), f"link lost: {url}")
+        return LinkLost(text + "; the robot's own watchdog must stop it" + kept)
+    if cause in (StopCause.WATCHDOG, StopCause.FAULT):
+        what = "a watchdog trip" if cause is StopCause.WATCHDOG else f"a fault (flags 0x{snapshot.flags:04X})"
+        return RobotFault(f"robot fault: {url} reports {what}; the console stopped" + kept)
+    return None
+
+
+def run(args: argparse.Namespace) -> int:
+    profile = load_profile(args.profile)
+    requests = read_requests(args.requests)
+    url = args.link if args.link is not None else profile.link.url
+    if args.fast and url != "sim":
+        raise InputError("command line", "--fast", url,
+                         'only with the simulated robot (--link sim): a real robot runs in real time')
+    _check_output(args.record)
+    sim = None
+    if url == "sim":
+        transport, robot_end = memory_pair()
+        sim = SimRobot(profile, robot_end)
+    else:
+        transport = open_url(url, profile.link.baud)
+    record = Path(args.record) if args.record else default_path(profile)
+    recorder = Recorder(record, profile, url)
+    player = _Player(requests)
+    loop = ControlLoop(profile, transport, VirtualClock() if args.fast else WallClock(), sim=sim,
+                       recorder=recorder, url=url, on_cycle=player.on_cycle)
+    player.loop = loop
+    interrupts = _Interrupts()
+    session = _Run(loop, args.fast, interrupts)
+    error: Exception | None = None
+    try:
+        print(f"play: {profile.path} over {url} at {profile.link.rate_hz:g} Hz"
+              f"{' (virtual clock)' if args.fast else ''}; recording to {record}", flush=True)
+        if not args.fast:
+            loop.start()
+        error = _play(args, session, player, url, record)
+    finally:
+        interrupts.restore()
+        loop.close()
+        stats = loop.stats()
+        recorder.close(stats, loop.link_stats())
+    print(f"play: {stats.cycles} cycles, {stats.overruns} missed periods, period error p99 "
+          f"{stats.period_error_p99_s * 1e3:.3f} ms; recording {record} (+ {sidecar_path(record).name})", flush=True)
+    if error is not None:
+        raise error
+    return EXIT_INTERRUPTED if interrupts.count else 0
+
+
+def _play(args: argparse.Namespace, session: _Run, player: _Player, url: str, record: Path) -> Exception | None:
+    """Cautions, arming, the trace, the final stop. Returns the error to end with (the loop is still running)."""
+    loop, interrupts = session.loop, session.interrupts
+    timeout = loop.profile.link.telemetry_timeout_s
+    if not args.yes:
+        print(CAUTIONS, flush=True)
+        for n in range(COUNTDOWN_S, 0, -1):
+            print(f"arming in {n} s ...", flush=True)
+            end = time.monotonic() + 1.0
+            while time.monotonic() < end and not interrupts.count:
+                time.sleep(POLL_S)
+                if args.fast:
+                    loop.run_cycles(1)
+            if interrupts.count:
+                print("play: interrupted before arming; nothing moved", flush=True)
+                return None
+    if session.wait_for(lambda s: s.link.telemetry_received > 0, timeout + FIRST_TELEMETRY_GRACE_S) is None:
+        if interrupts.count:
+            return None
+        return LinkLost(f"link lost: {url}: no telemetry within {timeout + FIRST_TELEMETRY_GRACE_S:g} s of "
+                        f"opening the link; nothing moved; recording kept in {record}")
+    loop.arm()
+    armed = session.wait_for(lambda s: s.state is SafetyState.ARMED or "arming refused" in
+                             (s.events[-1].text if s.events else ""), 1.0)
+    if armed is None or armed.state is not SafetyState.ARMED:
+        reason = armed.events[-1].text if armed is not None else "arming did not happen"
+        if armed is not None and "reports" in reason:
+            return RobotFault(f"robot fault: {url}: {reason}; nothing moved")
+        return None if interrupts.count else LinkLost(f"link lost: {url}: {reason}; nothing moved")
+    print("play: armed", flush=True)
+    player.go = True
+    ended = session.wait_for(
+        lambda s: s.state is not SafetyState.ARMED or (player.last_row_passed and s.shaped.settled),
+        player.requests.t_s[-1] + SETTLE_LIMIT_S + 1.0)
+    snapshot = loop.snapshot()
+    if snapshot.state is not SafetyState.ARMED:
+        return _finish_unasked_stop(session, snapshot, url, record)
+    cause = StopCause.OPERATOR if interrupts.count else StopCause.PROGRAM_END
+    if interrupts.count:
+        print("play: interrupted: controlled stop", flush=True)
+    elif ended is None:
+        print(f"play: the output had not settled {SETTLE_LIMIT_S:g} s after the last row; stopping", flush=True)
+    return _stop(session, cause, url, record)
+
+
+def _stop(session: _Run, cause: StopCause, url: str, record: Path) -> Exception | None:
+    """Controlled stop, escalated by every further Ctrl-C; waits until the loop reports STOPPED."""
+    loop, interrupts = session.loop, session.interrupts
+    asked = max(interrupts.count, 1)
+    loop.stop(ESCALATION[min(asked - 1, 2)], cause)
+    deadline = time.monotonic() + STOP_LIMIT_S
+    while True:
+        snapshot = session.poll()
+        if snapshot.state is SafetyState.STOPPED:
+            break
+        if interrupts.count > asked:
+            asked = interrupts.count
+            loop.stop(ESCALATION[min(asked - 1, 2)], StopCause.OPERATOR)
+            print(f"play: {ESCALATION[min(asked - 1, 2)].value} stop", flush=True)
+        if time.monotonic() > deadline:
+            loop.stop(StopKind.IMMEDIATE, StopCause.OPERATOR)
+    error = _fault_error(snapshot, url, record)
+    if error is None:
+        print(f"play: stopped ({snapshot.cause.value})", flush=True)
+    return error
+
+
+def _finish_unasked_stop(session: _Run, snapshot: Snapshot, url: str, record: Path) -> Exception | None:
+    """The loop stopped the robot by itself (link, watchdog, fault): let the stop finish, then report it."""
+    if snapshot.state is SafetyState.STOPPING:
+        snapshot = session.wait_for(lambda s: s.state is SafetyState.STOPPED, STOP_LIMIT_S) or session.loop.snapshot()
+    return _fault_error(snapshot, url, record)
