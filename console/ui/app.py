@@ -1,0 +1,324 @@
+"""The drive console: one screen of panels fed from the control loop's snapshots, and the operator's keys.
+
+Threads: the loop runs on its own thread; this app runs Textual's event loop and only ever calls
+`loop.request / arm / stop / operator_alive / ui_alive / snapshot`. A timer (<= 30 Hz) pulls the newest snapshot,
+refreshes the panels and beats the UI heartbeat, so a stalled screen makes the loop stop the robot.
+Stop keys are App-level priority bindings: they act in every state and above every overlay.
+"""
+
+from __future__ import annotations
+
+import math
+from typing import TYPE_CHECKING, Callable
+
+from textual.app import App, ComposeResult
+from textual.binding import Binding
+from textual.containers import Horizontal, Vertical
+from textual.screen import Screen
+
+from console.loop import SafetyState, StopCause
+from console.ui.driving import DriveInput, DriveMode, DriveSettings
+from console.ui.screens import CautionScreen, HelpScreen
+from console.ui.trace import KeyWireTrace
+from console.ui.widgets import (
+    AxisGauge, EventLog, HintBar, KeyCard, LimitPanel, LinkPanel, SafetyBanner, TitleBar, TopView, TracePlot,
+    WheelPanel,
+)
+from shaping.shaper import StopKind
+
+if TYPE_CHECKING:
+    from console.loop import Clock, ControlLoop, Snapshot
+    from console.profile import Profile
+
+RENDER_HZ_MAX = 30.0
+HEAVY_EVERY = 3
+"""The plot and the top view (the biggest panels) repaint on every 3rd tick: ~8 Hz scrolls smoothly enough and
+keeps the whole console within its CPU budget; their samples are still taken on every tick."""
+
+
+class DriveScreen(Screen[None]):
+    """The main screen. Driving keys live here, so they are dead while an overlay is open; stops are on the app."""
+
+    BINDINGS = [
+        Binding("a", "arm_open", "arm (1/2)", show=False),
+        Binding("enter", "arm_confirm", "arm (2/2)", show=False),
+        Binding("up", "nudge(1, 0)", "faster", show=False),
+        Binding("down", "nudge(-1, 0)", "slower", show=False),
+        Binding("left", "nudge(0, 1)", "turn left", show=False),
+        Binding("right", "nudge(0, -1)", "turn right", show=False),
+        *(Binding(str(n), f"preset({n})", f"speed {n * 10} %", show=False) for n in range(1, 10)),
+        Binding("0", "zero('speed')", "speed 0", show=False),
+        Binding("c", "zero('turn')", "turn 0", show=False),
+        Binding("z", "zero('both')", "all 0", show=False),
+        Binding("left_square_bracket", "steps(0.5)", "finer steps", show=False),
+        Binding("right_square_bracket", "steps(2.0)", "coarser steps", show=False),
+        Binding("m", "toggle_mode", "hold/latched", show=False),
+        Binding("question_mark,f1", "help", "help", show=False),
+    ]
+
+    def __init__(self, profile: Profile) -> None:
+        super().__init__(id="drive")
+        self.profile = profile
+        self._frames = 0
+
+    @property
+    def console(self) -> DriveApp:
+        app = self.app
+        assert isinstance(app, DriveApp)
+        return app
+
+    def compose(self) -> ComposeResult:
+        envelope = self.profile.envelope
+        top, reverse, turn = envelope.top_speed_mps, envelope.top_reverse_speed_mps, envelope.top_turn_rate_radps
+        margin = 0.12 * (top + reverse)
+        yield TitleBar(id="title")
+        with Horizontal(id="body"):
+            with Vertical(id="left"):
+                yield SafetyBanner(id="banner")
+                yield LinkPanel(id="link")
+                yield LimitPanel(id="limits")
+                yield KeyCard(id="keys")
+            with Vertical(id="right"):
+                with Vertical(id="gauges"):
+                    yield AxisGauge("speed", "m/s", -reverse - margin, top + margin, id="speed")
+                    yield AxisGauge("turn", "rad/s", -1.12 * turn, 1.12 * turn, id="turn")
+                yield WheelPanel(self.profile, id="wheels")
+                with Horizontal(id="views"):
+                    yield TracePlot((-reverse - margin, top + margin), 1.12 * turn, id="plot")
+                    yield TopView(id="top")
+                yield EventLog(id="events")
+        yield HintBar(id="hints")
+
+    def on_mount(self) -> None:
+        titles = {
+            "#link": "link", "#limits": "shaping", "#keys": "keys", "#gauges": "request · envelope · output",
+            "#wheels": f"wheels (limit ±{self.profile.limits.wheel_rate_radps:g} rad/s)", "#plot": "trace",
+            "#top": "top view", "#events": "events",
+        }
+        for selector, title in titles.items():
+            self.query_one(selector).border_title = title
+        self.title_bar = self.query_one(TitleBar)
+        self.banner = self.query_one(SafetyBanner)
+        self.link_panel = self.query_one(LinkPanel)
+        self.limit_panel = self.query_one(LimitPanel)
+        self.speed_gauge = self.query_one("#speed", AxisGauge)
+        self.turn_gauge = self.query_one("#turn", AxisGauge)
+        self.wheel_panel = self.query_one(WheelPanel)
+        self.plot = self.query_one(TracePlot)
+        self.top_view = self.query_one(TopView)
+        self.event_log = self.query_one(EventLog)
+        self.console.start_ticking()
+
+    def show(self, snap: Snapshot, drive: DriveInput, now_s: float) -> None:
+        """Hand the snapshot to every panel; each repaints only if what it shows changed."""
+        profile, s = self.profile, snap.shaped
+        geometry, envelope = profile.geometry, profile.envelope
+        self.title_bar.show(
+            profile.name, snap.link.url, drive.mode.value,
+            f"{drive.speed_step_mps:.3g} m/s · {drive.turn_step_radps:.3g} rad/s", snap.t_s,
+        )
+        self.banner.show(snap.state.value, None if snap.cause is None else snap.cause.value,
+                                          self._banner_detail(snap, drive, now_s))
+        self.link_panel.show(snap, profile.link.rate_hz)
+        self.limit_panel.show(snap)
+        meas_v = meas_w = None
+        if snap.left_meas_radps is not None and snap.right_meas_radps is not None:
+            meas_v, meas_w = geometry.to_body(snap.left_meas_radps, snap.right_meas_radps)
+        self.speed_gauge.show(
+            s.v_req_mps, s.v_target_mps, s.v_mps, meas_v, -envelope.top_reverse_speed_mps, envelope.top_speed_mps
+        )
+        turn_bound = envelope.max_turn_rate_at(s.v_mps)
+        self.turn_gauge.show(
+            s.omega_req_radps, s.omega_target_radps, s.omega_radps, meas_w, -turn_bound, turn_bound
+        )
+        self.wheel_panel.show(snap)
+        nan = math.nan
+        self._frames += 1
+        repaint = self._frames % HEAVY_EVERY == 0
+        self.plot.add(
+            snap.t_s, s.v_req_mps, s.v_mps, nan if meas_v is None else meas_v,
+            s.omega_req_radps, s.omega_radps, nan if meas_w is None else meas_w, repaint=repaint,
+        )
+        self.top_view.add(snap.pose, "true pose (sim)" if snap.link.url == "sim" else "dead reckoning",
+                          repaint=repaint)
+        self.event_log.add_loop(snap.events)
+
+    @staticmethod
+    def _banner_detail(snap: Snapshot, drive: DriveInput, now_s: float) -> str:
+        state = snap.state
+        if drive.arm_pending(now_s) and state in (SafetyState.DISARMED, SafetyState.STOPPED):
+            return "press ENTER now to arm"
+        if state is SafetyState.DISARMED:
+            return "no motion · arm: a then enter"
+        if state is SafetyState.STOPPED:
+            return "robot held at zero · re-arm: a then enter"
+        if state is SafetyState.STOPPING:
+            return "ramping down · x: faster stop"
+        hold = drive.hold_left_s(now_s)
+        if drive.mode is DriveMode.HOLD:
+            return "HOLD: keep a key down" if hold is None else f"HOLD: request lapses in {hold:.1f} s"
+        return "LATCHED: request stays · space stops"
+
+    def note(self, t_s: float, text: str) -> None:
+        self.event_log.add_note(t_s, text)
+
+    # ---- actions: every one goes through the app, which alone talks to the loop
+    def action_arm_open(self) -> None:
+        self.console.arm_open()
+
+    def action_arm_confirm(self) -> None:
+        self.console.arm_confirm()
+
+    def action_nudge(self, speed_steps: int, turn_steps: int) -> None:
+        self.console.drive_key(f"nudge {speed_steps:+d} {turn_steps:+d}",
+                               lambda d, now: d.nudge(speed_steps, turn_steps, now))
+
+    def action_preset(self, tenths: int) -> None:
+        self.console.drive_key(f"preset {tenths}", lambda d, now: d.preset(tenths / 10.0, now))
+
+    def action_zero(self, which: str) -> None:
+        changes: dict[str, Callable[[DriveInput, float], object]] = {
+            "speed": lambda d, now: d.zero_speed(now),
+            "turn": lambda d, now: d.centre_turn(now),
+            "both": lambda d, now: (d.zero_speed(now), d.centre_turn(now)),
+        }
+        self.console.drive_key(f"zero {which}", changes[which])
+
+    def action_steps(self, factor: float) -> None:
+        self.console.scale_steps(factor)
+
+    def action_toggle_mode(self) -> None:
+        self.console.toggle_mode()
+
+    def action_help(self) -> None:
+        self.app.push_screen(HelpScreen(self.console.drive.deadman_s))
+
+
+class DriveApp(App[int]):
+    """The console. `tick()` is the only place snapshots are read; key actions are the only places requests are sent."""
+
+    CSS_PATH = "drive.tcss"
+    TITLE = "diffdeck drive"
+    HORIZONTAL_BREAKPOINTS = [(0, "-narrow"), (100, "-wide")]
+    VERTICAL_BREAKPOINTS = [(0, "-short"), (34, "-tall")]
+    ENABLE_COMMAND_PALETTE = False
+    BINDINGS = [
+        Binding("space", "stop('controlled')", "controlled stop", priority=True),
+        Binding("x", "stop('fast')", "fast stop", priority=True),
+        Binding("q,ctrl+c", "quit_console", "stop and quit", priority=True),
+    ]
+
+    def __init__(self, loop: ControlLoop, profile: Profile, clock: Clock, settings: DriveSettings, *,
+                 real_link: bool, render_hz: float = 25.0, trace: KeyWireTrace | None = None) -> None:
+        super().__init__()
+        self.loop = loop
+        self.profile = profile
+        self.clock = clock
+        self.drive = DriveInput(profile.envelope, settings)
+        self.real_link = real_link
+        self.render_hz = min(render_hz, RENDER_HZ_MAX)
+        self.trace = trace
+        self.confirmed = not real_link
+        self.last_snapshot: Snapshot | None = None
+
+    def get_default_screen(self) -> Screen[None]:
+        return DriveScreen(self.profile)
+
+    @property
+    def drive_screen(self) -> DriveScreen:
+        screen = self.screen_stack[0]
+        assert isinstance(screen, DriveScreen)
+        return screen
+
+    def start_ticking(self) -> None:
+        """Called once the drive screen is composed: first frame now, then the refresh timer."""
+        self.tick()
+        self.set_interval(1.0 / self.render_hz, self.tick)
+        if self.real_link:
+            self.push_screen(
+                CautionScreen(self.profile.link.url, self.profile.link.watchdog_s, self.drive.deadman_s),
+                self._cautions_read,
+            )
+
+    def _cautions_read(self, confirmed: bool | None) -> None:
+        self.confirmed = bool(confirmed)
+        self._note("cautions confirmed by the operator")
+
+    # ---- the refresh tick: snapshot in, heartbeat out
+    def tick(self) -> None:
+        self.loop.ui_alive()
+        now = self.clock.now()
+        if self.drive.expire(now):
+            self.loop.request(0.0, 0.0)
+            self._note(f"hold released: no driving key for {self.drive.deadman_s:.2f} s, request to zero")
+        snap = self.loop.snapshot()
+        if snap.state is not SafetyState.ARMED and self.drive.request != (0.0, 0.0):
+            self.drive.clear()   # the loop stopped on its own (link, deadman, fault): nothing may stay requested
+        self.last_snapshot = snap
+        self.drive_screen.show(snap, self.drive, now)
+
+    def _note(self, text: str) -> None:
+        t_s = self.last_snapshot.t_s if self.last_snapshot is not None else 0.0
+        self.drive_screen.note(t_s, text)
+
+    def _key(self, name: str) -> None:
+        self.loop.operator_alive()
+        if self.trace is not None:
+            self.trace.key(name)
+
+    # ---- operator actions
+    def action_stop(self, kind: str) -> None:
+        self._key(f"stop {kind}")
+        self.drive.clear()
+        self.drive.cancel_arm()
+        self.loop.stop(StopKind(kind), StopCause.OPERATOR)
+
+    def action_quit_console(self) -> None:
+        self._key("quit")
+        self.drive.clear()
+        self.loop.stop(StopKind.CONTROLLED, StopCause.PROGRAM_END)
+        self.exit(0)
+
+    def arm_open(self) -> None:
+        self._key("arm open")
+        if not self.confirmed:
+            return
+        self.drive.open_arm(self.clock.now())
+        self._note(f"arming: press enter within {self.drive.arm_window_s:g} s")
+        self.tick()
+
+    def arm_confirm(self) -> None:
+        self._key("arm confirm")
+        if not self.drive.confirm_arm(self.clock.now()):
+            self._note("enter arms only right after a")
+            return
+        self.drive.clear()
+        self.loop.request(0.0, 0.0)
+        self.loop.arm()
+        self.tick()
+
+    def drive_key(self, name: str, change: Callable[[DriveInput, float], object]) -> None:
+        """A driving key: only when armed; sends the new request at once (not at the next tick)."""
+        self._key(name)
+        snap = self.last_snapshot
+        if snap is None or snap.state is not SafetyState.ARMED:
+            self._note("not armed: a then enter arms")
+            return
+        now = self.clock.now()
+        before = self.drive.request
+        change(self.drive, now)
+        if self.drive.request != before:
+            self.loop.request(*self.drive.request)
+        else:
+            self.drive.refresh(now)
+
+    def scale_steps(self, factor: float) -> None:
+        self._key("steps")
+        self.drive.scale_steps(factor)
+        self._note(f"steps {self.drive.speed_step_mps:.3g} m/s, {self.drive.turn_step_radps:.3g} rad/s")
+
+    def toggle_mode(self) -> None:
+        self._key("mode")
+        mode = self.drive.toggle_mode()
+        self.loop.request(0.0, 0.0)
+        self._note(f"{mode.value} mode; request to zero")

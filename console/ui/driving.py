@@ -1,0 +1,145 @@
+"""What the operator's keys mean, as a small state machine with no terminal in it (the app feeds it key events and
+the loop clock's time; it answers with the request to send).
+
+- Nudges add steps to the request, clamped to the envelope so a long key press never builds up a hidden excess.
+- Presets set the speed to a fraction of the envelope's top speed in the current direction of travel.
+- Hold mode: every driving key refreshes the request; with no driving key for `deadman_s` it falls to zero.
+  Terminals send key presses and auto-repeats but (mostly) no releases, so "held" means "repeats keep arriving".
+  The deadman time must be longer than a typical auto-repeat delay (~0.5 s before the first repeat).
+- Latched mode: the request stays until changed.
+- Arming is a two-key sequence: the arm key opens a short window, the confirm key inside it arms.
+"""
+
+from __future__ import annotations
+
+import enum
+from dataclasses import dataclass
+
+from shaping.envelope import Envelope
+
+
+class DriveMode(enum.Enum):
+    HOLD = "hold"
+    LATCHED = "latched"
+
+
+@dataclass(frozen=True, slots=True)
+class DriveSettings:
+    speed_step_mps: float
+    turn_step_radps: float
+    deadman_s: float = 0.7
+    arm_window_s: float = 2.0
+    mode: DriveMode = DriveMode.HOLD
+
+    @staticmethod
+    def for_envelope(envelope: Envelope, **overrides: object) -> DriveSettings:
+        """Default steps: 1/20 of the top speed and 1/10 of the top turn rate (common practice: ~10-20 presses to full)."""
+        defaults: dict[str, object] = {
+            "speed_step_mps": round(envelope.top_speed_mps / 20.0, 3),
+            "turn_step_radps": round(envelope.top_turn_rate_radps / 10.0, 3),
+        }
+        defaults.update({key: value for key, value in overrides.items() if value is not None})
+        return DriveSettings(**defaults)  # type: ignore[arg-type]
+
+
+class DriveInput:
+    """The request the keys have built, and the arming window."""
+
+    def __init__(self, envelope: Envelope, settings: DriveSettings) -> None:
+        self.envelope = envelope
+        self.speed_step_mps = settings.speed_step_mps
+        self.turn_step_radps = settings.turn_step_radps
+        self.deadman_s = settings.deadman_s
+        self.arm_window_s = settings.arm_window_s
+        self.mode = settings.mode
+        self.v_mps = 0.0
+        self.omega_radps = 0.0
+        self._refreshed_s: float | None = None
+        self._arm_opened_s: float | None = None
+
+    @property
+    def request(self) -> tuple[float, float]:
+        return self.v_mps, self.omega_radps
+
+    def _set(self, v_mps: float, omega_radps: float, now_s: float) -> tuple[float, float]:
+        top = self.envelope.top_speed_mps
+        reverse = self.envelope.top_reverse_speed_mps
+        turn = self.envelope.top_turn_rate_radps
+        self.v_mps = min(max(v_mps, -reverse), top)
+        self.omega_radps = min(max(omega_radps, -turn), turn)
+        # snap what rounding left over to an exact zero, so "back to zero" by nudges really is zero
+        if abs(self.v_mps) < 1e-9:
+            self.v_mps = 0.0
+        if abs(self.omega_radps) < 1e-9:
+            self.omega_radps = 0.0
+        self._refreshed_s = now_s
+        return self.request
+
+    def nudge(self, speed_steps: int, turn_steps: int, now_s: float) -> tuple[float, float]:
+        return self._set(
+            self.v_mps + speed_steps * self.speed_step_mps, self.omega_radps + turn_steps * self.turn_step_radps, now_s
+        )
+
+    def preset(self, fraction: float, now_s: float) -> tuple[float, float]:
+        """Speed = fraction of the top speed, forward unless the request is already reversing."""
+        if self.v_mps < 0.0:
+            return self._set(-fraction * self.envelope.top_reverse_speed_mps, self.omega_radps, now_s)
+        return self._set(fraction * self.envelope.top_speed_mps, self.omega_radps, now_s)
+
+    def zero_speed(self, now_s: float) -> tuple[float, float]:
+        return self._set(0.0, self.omega_radps, now_s)
+
+    def centre_turn(self, now_s: float) -> tuple[float, float]:
+        return self._set(self.v_mps, 0.0, now_s)
+
+    def refresh(self, now_s: float) -> None:
+        """A driving key repeated without changing anything (e.g. at a bound) still keeps a hold alive."""
+        self._refreshed_s = now_s
+
+    def clear(self) -> None:
+        """After a stop, a mode switch or (re-)arming: the request is zero and nothing is held."""
+        self.v_mps = 0.0
+        self.omega_radps = 0.0
+        self._refreshed_s = None
+
+    def expire(self, now_s: float) -> bool:
+        """Hold mode: True once, when the deadman time ran out with a non-zero request (it is now zero)."""
+        if self.mode is not DriveMode.HOLD or self._refreshed_s is None:
+            return False
+        if now_s - self._refreshed_s < self.deadman_s:
+            return False
+        held = self.request != (0.0, 0.0)
+        self.clear()
+        return held
+
+    def hold_left_s(self, now_s: float) -> float | None:
+        """Time until the hold runs out (None in latched mode or when nothing is held)."""
+        if self.mode is not DriveMode.HOLD or self._refreshed_s is None or self.request == (0.0, 0.0):
+            return None
+        return max(0.0, self.deadman_s - (now_s - self._refreshed_s))
+
+    def toggle_mode(self) -> DriveMode:
+        self.mode = DriveMode.LATCHED if self.mode is DriveMode.HOLD else DriveMode.HOLD
+        self.clear()
+        return self.mode
+
+    def scale_steps(self, factor: float) -> None:
+        """Finer or coarser nudges, kept between 1/100 and 1/2 of the envelope."""
+        top, turn = self.envelope.top_speed_mps, self.envelope.top_turn_rate_radps
+        self.speed_step_mps = min(max(self.speed_step_mps * factor, top / 100.0), top / 2.0)
+        self.turn_step_radps = min(max(self.turn_step_radps * factor, turn / 100.0), turn / 2.0)
+
+    def open_arm(self, now_s: float) -> None:
+        self._arm_opened_s = now_s
+
+    def arm_pending(self, now_s: float) -> bool:
+        return self._arm_opened_s is not None and now_s - self._arm_opened_s <= self.arm_window_s
+
+    def confirm_arm(self, now_s: float) -> bool:
+        """True when the confirm key came inside the window the arm key opened; the window closes either way."""
+        pending = self.arm_pending(now_s)
+        self._arm_opened_s = None
+        return pending
+
+    def cancel_arm(self) -> None:
+        self._arm_opened_s = None

@@ -1,0 +1,116 @@
+"""The overlays: the help list (every binding) and the safety cautions shown before driving a real robot."""
+
+from __future__ import annotations
+
+from rich.text import Text
+from textual.app import ComposeResult
+from textual.binding import Binding
+from textual.containers import Vertical, VerticalScroll
+from textual.screen import ModalScreen
+from textual.widgets import Static
+
+# Every binding of the console, grouped as the help overlay shows them. tests check that each key bound on the app
+# or the drive screen appears here, so the list cannot drift from the code.
+HELP_GROUPS: tuple[tuple[str, tuple[tuple[str, str], ...]], ...] = (
+    ("Stopping — these work in every state and on every screen, this one included", (
+        ("space", "controlled stop: both axes ramp down within the normal limits, then hold zero"),
+        ("x", "fast stop: ramp down with the profile's stop deceleration and stop jerk"),
+        ("q / ctrl+c", "controlled stop, then quit the console"),
+    )),
+    ("Arming", (
+        ("a", "open the arming window (2 s): nothing moves yet"),
+        ("enter", "inside the window: arm. The request starts at zero; after any stop, arm again"),
+    )),
+    ("Driving (armed only)", (
+        ("up / down", "speed request + / − one step"),
+        ("left / right", "turn-rate request: left (counter-clockwise) / right, one step"),
+        ("1 … 9", "speed preset: 10 % … 90 % of the envelope's top speed (reverse if reversing)"),
+        ("0", "speed request to zero (turn rate kept)"),
+        ("c", "turn-rate request to zero (speed kept)"),
+        ("z", "both requests to zero"),
+        ("[ / ]", "finer / coarser nudge steps (half / double)"),
+    )),
+    ("Modes and view", (
+        ("m", "switch hold ↔ latched mode (the request goes to zero on every switch)"),
+        ("? / f1", "this help; escape or ? closes it"),
+    )),
+)
+
+HELP_NOTES = (
+    "Hold mode: the request lives only while driving keys keep arriving. Most terminals send no key-release "
+    "events, so holding a key works through the terminal's auto-repeat; with no driving key for the deadman time "
+    "({deadman:.2f} s, longer than a typical 0.5 s auto-repeat delay) the request falls to zero and the shaper "
+    "brings the robot to rest. It stays armed.",
+    "Latched mode: the request stays until you change it or stop.",
+    "The loop stops the robot by itself when the link or the telemetry goes quiet, the robot reports a watchdog trip "
+    "or a fault, or this screen stops refreshing.",
+    "A software stop is not an emergency stop. Keep the robot's hardware emergency stop within reach.",
+)
+
+CAUTIONS = (
+    "You are about to drive a REAL robot over {url}.",
+    "",
+    "• A software stop is not a safety function. Keep the robot's hardware emergency stop within reach, and try it "
+    "before you arm.",
+    "• For bench tests, put the robot on blocks with its wheels off the ground.",
+    "• Clear the space around it: people, cables, table edges, stairs.",
+    "• Check the profile's limits and wheel polarity first (a wrong sign drives the other way).",
+    "• The console stops the robot when the link, its telemetry or this screen goes quiet; when this computer fails, "
+    "only the robot's own watchdog ({watchdog:.2f} s) stops it.",
+    "• Most terminals send no key-release events: in hold mode a request outlives your key by up to {deadman:.2f} s.",
+)
+
+
+def help_text(deadman_s: float) -> Text:
+    text = Text()
+    for title, rows in HELP_GROUPS:
+        text.append(f"{title}\n", "bold underline")
+        for keys, what in rows:
+            text.append(f"  {keys:<14}", "bold")
+            text.append(f"{what}\n")
+        text.append("\n")
+    for note in HELP_NOTES:
+        text.append("• " + note.format(deadman=deadman_s) + "\n")
+    return text
+
+
+class HelpScreen(ModalScreen[None]):
+    """Every binding and the driving modes. The app's stop keys stay live above it (priority bindings)."""
+
+    BINDINGS = [
+        Binding("escape,question_mark,f1", "dismiss", "close help"),
+    ]
+
+    def __init__(self, deadman_s: float) -> None:
+        super().__init__(id="help")
+        self.deadman_s = deadman_s
+
+    def compose(self) -> ComposeResult:
+        with Vertical(id="help-box") as box:
+            box.border_title = "keys and modes"
+            box.border_subtitle = "escape closes"
+            with VerticalScroll():
+                yield Static(help_text(self.deadman_s), id="help-text")
+
+
+class CautionScreen(ModalScreen[bool]):
+    """Shown before the first drive against a real link; `y` confirms, `q` (an app binding) quits."""
+
+    BINDINGS = [Binding("y", "confirm", "I have read this")]
+
+    def __init__(self, url: str, watchdog_s: float, deadman_s: float) -> None:
+        super().__init__(id="cautions")
+        self.url = url
+        self.watchdog_s = watchdog_s
+        self.deadman_s = deadman_s
+
+    def compose(self) -> ComposeResult:
+        body = "\n".join(CAUTIONS).format(url=self.url, watchdog=self.watchdog_s, deadman=self.deadman_s)
+        with Vertical(id="caution-box") as box:
+            box.border_title = "before you drive"
+            yield Static(body, id="caution-text")
+            yield Static(Text.assemble(("  y  ", "bold reverse"), " I have read this, continue    ",
+                                       ("  q  ", "bold reverse"), " quit"), id="caution-keys")
+
+    def action_confirm(self) -> None:
+        self.dismiss(True)

@@ -1,0 +1,137 @@
+"""`diffdeck drive PROFILE [--link URL]`: the operator console on a real robot or on the built-in simulated one.
+
+The control loop runs on its own thread on the wall clock; the Textual app only reads its snapshots and sends
+requests. When the app ends (q, ctrl+c or a crash) the robot gets a controlled stop and the loop keeps running until
+the robot is at rest, so leaving the console never leaves a wheel turning.
+"""
+
+from __future__ import annotations
+
+import argparse
+import dataclasses
+import math
+import sys
+import time
+
+from console.errors import InputError
+from console.loop import ControlLoop, SafetyState, StopCause, WallClock
+from console.profile import Profile, load_profile
+from console.record import Recorder, default_path
+from console.transport import Transport, memory_pair, open_url
+from console.ui.driving import DriveMode, DriveSettings
+from console.ui.trace import KeyWireTrace
+from shaping.shaper import StopKind
+
+NAME = "drive"
+HELP = "open the operator console: arm, drive and stop the robot (or the simulated one) with live gauges"
+ORDER = 50
+
+UI_TIMEOUT_S = 0.75
+"""No UI heartbeat for this long -> the loop stops the robot (fast stop). Many 40 ms render ticks; a terminal that
+blocks the app for longer than this is not showing the operator the robot any more."""
+SETTLE_TIMEOUT_S = 10.0
+DEADMAN_RANGE_S = (0.3, 5.0)
+
+
+def add_arguments(parser: argparse.ArgumentParser) -> None:
+    parser.add_argument("profile", metavar="PROFILE", help="robot profile (TOML)")
+    parser.add_argument("--link", metavar="URL", help="'sim' (built-in simulated robot), a device path or a pyserial "
+                        "URL such as socket://host:port; default: the profile's [link] url")
+    parser.add_argument("--mode", choices=[mode.value for mode in DriveMode], default=DriveMode.HOLD.value,
+                        help="driving mode at start (switch with m): hold (default) or latched")
+    parser.add_argument("--speed-step-mps", type=float, metavar="MPS",
+                        help="speed nudge per arrow key (default: 1/20 of the top speed)")
+    parser.add_argument("--turn-step-radps", type=float, metavar="RADPS",
+                        help="turn-rate nudge per arrow key (default: 1/10 of the top turn rate)")
+    parser.add_argument("--deadman-s", type=float, default=0.7, metavar="S",
+                        help="hold mode: the request falls to zero this long after the last driving key "
+                        "(default 0.7; keep it above the terminal's auto-repeat delay)")
+    parser.add_argument("--rate-hz", type=float, metavar="HZ", help="command rate (default: the profile's rate_hz)")
+    parser.add_argument("--record", action="store_true",
+                        help="record the session to recordings/ (CSV + JSON sidecar)")
+
+
+def _positive(key: str, value: float | None, allowed: str, low: float = 0.0, high: float = math.inf) -> None:
+    if value is not None and not (math.isfinite(value) and low < value <= high):
+        raise InputError("drive", key, value, allowed)
+
+
+def settings_from(args: argparse.Namespace, profile: Profile) -> DriveSettings:
+    """Drive settings from the command line; bad values are one clear line (exit 2) before anything opens."""
+    _positive("--speed-step-mps", args.speed_step_mps, "a speed step > 0 m/s up to the top speed",
+              high=profile.envelope.top_speed_mps)
+    _positive("--turn-step-radps", args.turn_step_radps, "a turn-rate step > 0 rad/s up to the top turn rate",
+              high=profile.envelope.top_turn_rate_radps)
+    low, high = DEADMAN_RANGE_S
+    if not (math.isfinite(args.deadman_s) and low <= args.deadman_s <= high):
+        raise InputError("drive", "--deadman-s", args.deadman_s,
+                         f"{low:g}..{high:g} s, above the terminal's auto-repeat delay (0.6-0.8 s is usual)")
+    return DriveSettings.for_envelope(
+        profile.envelope, speed_step_mps=args.speed_step_mps, turn_step_radps=args.turn_step_radps,
+        deadman_s=args.deadman_s, mode=DriveMode(args.mode),
+    )
+
+
+def profile_for_link(args: argparse.Namespace, profile: Profile) -> Profile:
+    """The profile with the command-line link overrides applied (the file itself is never touched)."""
+    link = profile.link
+    if args.rate_hz is not None:
+        _positive("--rate-hz", args.rate_hz, "10..1000 Hz", low=9.999999, high=1000.0)
+        link = dataclasses.replace(link, rate_hz=args.rate_hz)
+    if args.link is not None:
+        if not args.link.strip():
+            raise InputError("drive", "--link", args.link, "'sim', a device path or a pyserial URL")
+        link = dataclasses.replace(link, url=args.link.strip())
+    return dataclasses.replace(profile, link=link)
+
+
+def open_link(profile: Profile) -> tuple[Transport, object | None]:
+    """(console end, simulated robot or None): the in-process sim for "sim", else the pyserial URL."""
+    if profile.link.url == "sim":
+        from console.sim.firmware import SimRobot
+
+        console_end, robot_end = memory_pair("sim")
+        return console_end, SimRobot(profile, robot_end)
+    return open_url(profile.link.url, profile.link.baud), None
+
+
+def _bring_to_rest(loop: ControlLoop) -> None:
+    """Controlled stop, then keep the loop (and its UI heartbeat) going until the robot is at rest."""
+    loop.stop(StopKind.CONTROLLED, StopCause.PROGRAM_END)
+    deadline = time.monotonic() + SETTLE_TIMEOUT_S
+    while time.monotonic() < deadline and loop.failure is None:
+        loop.ui_alive()
+        if loop.snapshot().state in (SafetyState.DISARMED, SafetyState.STOPPED):
+            return
+        time.sleep(0.02)
+
+
+def run(args: argparse.Namespace) -> int:
+    from console.ui.app import DriveApp   # Textual is imported only when the console really opens
+
+    profile = profile_for_link(args, load_profile(args.profile))
+    settings = settings_from(args, profile)
+    transport, sim = open_link(profile)
+    trace = KeyWireTrace.from_env()
+    if trace is not None:
+        transport = trace.wrap(transport)
+    recorder = Recorder(default_path(profile), profile, profile.link.url) if args.record else None
+    clock = WallClock()
+    loop = ControlLoop(profile, transport, clock, sim=sim, recorder=recorder, ui_timeout_s=UI_TIMEOUT_S,
+                       url=profile.link.url)
+    app = DriveApp(loop, profile, clock, settings, real_link=sim is None, trace=trace)
+    loop.start()
+    try:
+        app.run()
+    finally:
+        _bring_to_rest(loop)
+        loop.close()
+        if recorder is not None:
+            path = recorder.close(loop.stats(), loop.link_stats())
+            print(f"diffdeck drive: recorded {path}", file=sys.stderr)
+        if trace is not None:
+            trace.save({"loop": dataclasses.asdict(loop.stats()), "link": dataclasses.asdict(loop.link_stats())})
+    if loop.failure is not None:
+        print(f"diffdeck drive: the control loop failed: {loop.failure!r}", file=sys.stderr)
+        return 1
+    return 0
