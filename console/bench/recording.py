@@ -1,0 +1,140 @@
+"""Reading a session recording (CSV + sidecars) into numpy arrays for the report; bad files are one-line errors."""
+
+from __future__ import annotations
+
+import io
+import json
+import re
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+from console.bench.run import bench_sidecar_path
+from console.errors import InputError
+from console.record import COLUMNS, POSE_COLUMNS, sidecar_path
+
+NUMERIC = tuple(c for c in COLUMNS if c != "state")
+MIN_ROWS = 20
+
+
+class RecordingError(InputError):
+    """A recording the report cannot use: file, field, value, what is allowed (exit code 2)."""
+
+
+@dataclass(frozen=True, slots=True)
+class Segment:
+    """A stretch of the recording with what was asked in it (from the bench sidecar, or the whole recording)."""
+
+    index: int
+    name: str
+    kind: str
+    axis: str
+    bypass: bool
+    t_start_s: float
+    t_end_s: float
+    start: float
+    end: float
+    amplitude: float
+    lead_s: float
+    period_s: float
+
+
+@dataclass(frozen=True, slots=True)
+class Recording:
+    path: Path
+    data: dict[str, np.ndarray]         # every numeric column by name (NaN where the field was empty)
+    state: np.ndarray                   # the `state` column (str)
+    wheel_radius_m: float | None
+    track_width_m: float | None
+    top_speed_mps: float | None
+    segments: tuple[Segment, ...]
+    program: str | None
+    bench: dict[str, Any] | None
+
+    @property
+    def has_pose(self) -> bool:
+        return all(name in self.data for name in POSE_COLUMNS)
+
+    @property
+    def t(self) -> np.ndarray:
+        return self.data["t_s"]
+
+
+_ROW_RE = re.compile(r"row (\d+)")
+
+
+def _fail(path: Path, key: str, value: object, allowed: str) -> RecordingError:
+    return RecordingError(str(path), key, value, allowed)
+
+
+def _json(path: Path) -> dict[str, Any] | None:
+    try:
+        data = json.loads(path.read_text(encoding="utf-8"))
+    except FileNotFoundError:
+        return None
+    except (OSError, ValueError) as error:
+        raise _fail(path, "file", path.name, f"a readable JSON sidecar ({error.__class__.__name__})")
+    return data if isinstance(data, dict) else None
+
+
+def read_recording(path: str | Path) -> Recording:
+    path = Path(path)
+    try:
+        text = path.read_text(encoding="utf-8")
+    except (OSError, UnicodeDecodeError) as error:
+        raise _fail(path, "file", str(path), f"a readable UTF-8 CSV recording ({error.__class__.__name__})")
+    header, _, body = text.partition("\n")
+    columns = header.strip().split(",")
+    if tuple(columns[: len(COLUMNS)]) != COLUMNS:
+        raise _fail(path, "header", header.strip()[:80], "a diffdeck recording header beginning " + ",".join(COLUMNS))
+    pose = tuple(columns[len(COLUMNS):len(COLUMNS) + 3]) == POSE_COLUMNS
+    names = NUMERIC + (POSE_COLUMNS if pose else ())
+    usecols = [columns.index(name) for name in names]
+    state_col = columns.index("state")
+    # Empty fields (no measurement yet) become nan; two passes cover runs of empty fields.
+    body = body.replace(",,", ",nan,").replace(",,", ",nan,").replace(",\n", ",nan\n")
+    if body.endswith(","):
+        body += "nan"
+    try:
+        table = np.loadtxt(io.StringIO(body), delimiter=",", usecols=usecols, ndmin=2, dtype=float)
+        state = np.loadtxt(io.StringIO(body), delimiter=",", usecols=[state_col], dtype=str, ndmin=1)
+    except ValueError as error:
+        match = _ROW_RE.search(str(error))
+        line = int(match.group(1)) + 1 if match else "?"
+        raise _fail(path, f"line {line}", str(error).split(" at row")[0][:80],
+                    f"{len(columns)} comma-separated fields per row, numbers in {', '.join(names)}")
+    if table.shape[0] < MIN_ROWS:
+        raise _fail(path, "rows", table.shape[0], f"at least {MIN_ROWS} data rows")
+    data = {name: table[:, i].copy() for i, name in enumerate(names)}
+    t = data["t_s"]
+    bad = np.flatnonzero(~np.isfinite(t) | (np.diff(t, prepend=-np.inf) <= 0.0))
+    if bad.size:
+        raise _fail(path, f"line {int(bad[0]) + 2} t_s", t[bad[0]], "finite times, strictly increasing")
+    bench = _json(bench_sidecar_path(path))
+    meta = _json(sidecar_path(path)) or {}
+    radius = track = top = None
+    if bench is not None:
+        radius, track = bench["geometry"]["wheel_radius_m"], bench["geometry"]["track_width_m"]
+        top = bench.get("top_speed_mps")
+    else:
+        geometry = ((meta.get("profile") or {}).get("data") or {}).get("geometry") or {}
+        radius, track = geometry.get("wheel_radius_m"), geometry.get("track_width_m")
+    segments = _segments(path, bench, float(t[0]), float(t[-1]))
+    return Recording(path, data, state, radius, track, top, segments,
+                     bench["program"]["name"] if bench else None, bench)
+
+
+def _segments(path: Path, bench: dict[str, Any] | None, t_first: float, t_last: float) -> tuple[Segment, ...]:
+    if bench is None:
+        return (Segment(0, "whole recording", "record", "speed", False, t_first, t_last, 0.0, 0.0, 0.0, 0.0, 0.0),)
+    try:
+        segments = tuple(Segment(int(s["index"]), str(s["name"]), str(s["kind"]), str(s["axis"]), bool(s["bypass"]),
+                                 float(s["t_start_s"]), float(s["t_end_s"]), float(s["start"]), float(s["end"]),
+                                 float(s["amplitude"]), float(s["lead_s"]), float(s["period_s"]))
+                         for s in bench["segments"])
+    except (KeyError, TypeError, ValueError) as error:
+        raise _fail(bench_sidecar_path(path), "segments", repr(error)[:60], "the segment list `bench` writes")
+    # A run stopped early (Ctrl-C) keeps only the segments that began before its end.
+    return tuple(s for s in segments if s.t_start_s < t_last)

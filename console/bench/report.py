@@ -1,0 +1,374 @@
+"""The bench report: per-segment metrics, per-wheel FOPDT fits, suggested limits, polarity, figures and Markdown.
+
+`analyze` turns a Recording into a Report (numbers only); `write_report` writes summary.md, report.json and the PNG
+figures (matplotlib, Agg backend) into one directory. Both are vectorized: an hour at 100 Hz takes seconds.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import json
+import math
+import os
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+from console.bench import analysis
+from console.bench.analysis import FopdtFit, StepMetrics, SuggestedLimits
+from console.bench.polarity import PolarityReport, check_polarity
+from console.bench.recording import Recording, Segment
+
+DEFAULT_SPEED_ERROR_SHARE = 0.05    # stated tracking error for the suggested limits: 5 % of the top speed
+DEFAULT_SPEED_ERROR_MPS = 0.05      # when the top speed is unknown (no bench sidecar)
+PLOT_POINTS = 4000                  # per line: min/max pairs keep the peaks of long recordings
+FIGURES = ("response.png", "acceleration.png", "tracking.png")
+UNITS = {"speed": "m/s", "turn": "rad/s", "left": "rad/s", "right": "rad/s"}
+
+
+@dataclass(frozen=True, slots=True)
+class SegmentReport:
+    index: int
+    name: str
+    kind: str
+    axis: str
+    unit: str
+    bypass: bool
+    t_start_s: float
+    t_end_s: float
+    step: StepMetrics | None          # step segments; square waves: the median over their edges
+    edges: int
+    peak_accel: float | None          # achieved (measured), axis unit per s
+    peak_jerk: float | None
+    peak_accel_cmd: float | None      # what was commanded (shaped, or raw around the shaper)
+    peak_jerk_cmd: float | None
+    tracking_rms: float | None        # command - measured on the axis
+    mismatch_rms_radps: float | None  # (left error) - (right error), rad/s
+    mismatch_peak_radps: float | None
+
+
+@dataclass(frozen=True, slots=True)
+class Report:
+    recording: str
+    program: str | None
+    duration_s: float
+    rows: int
+    segments: tuple[SegmentReport, ...]
+    fits: dict[str, FopdtFit | None]
+    limits: SuggestedLimits | None
+    polarity: PolarityReport | None
+    notes: tuple[str, ...]
+
+    def to_json(self) -> dict[str, Any]:
+        def plain(value: Any) -> Any:
+            if dataclasses.is_dataclass(value):
+                out = {f.name: plain(getattr(value, f.name)) for f in dataclasses.fields(value)}
+                if isinstance(value, FopdtFit):
+                    out["lag_s"] = value.lag_s
+                return out
+            if isinstance(value, dict):
+                return {k: plain(v) for k, v in value.items()}
+            if isinstance(value, list | tuple):
+                return [plain(v) for v in value]
+            if isinstance(value, float) and not math.isfinite(value):
+                return None
+            return value
+
+        data = plain(self)
+        data["limits_snippet"] = self.limits.snippet(Path(self.recording).name) if self.limits else None
+        data["polarity_snippet"] = self.polarity.snippet() if self.polarity else None
+        return data
+
+
+class _Signals:
+    """The axis signals of a recording (request, command, measurement) and their derivatives, computed once."""
+
+    def __init__(self, rec: Recording) -> None:
+        d = rec.data
+        self.t = rec.t
+        self.rec = rec
+        self.meas_l, self.meas_r = d["left_meas_radps"], d["right_meas_radps"]
+        self.cmd_l, self.cmd_r = d["left_cmd_radps"], d["right_cmd_radps"]
+        self.body = rec.wheel_radius_m is not None and rec.track_width_m is not None
+        self._deriv: dict[tuple[str, str, int], np.ndarray] = {}
+
+    def axis(self, axis: str) -> tuple[np.ndarray, np.ndarray, np.ndarray] | None:
+        """(request, command, measured) on an axis, or None without geometry for body axes."""
+        d, rec = self.rec.data, self.rec
+        if axis in ("left", "right"):
+            req = self._wheel_request(axis)
+            return (req, self.cmd_l, self.meas_l) if axis == "left" else (req, self.cmd_r, self.meas_r)
+        if not self.body:
+            return None
+        r, w = rec.wheel_radius_m, rec.track_width_m
+        if axis == "speed":
+            return d["v_req_mps"], d["v_mps"], 0.5 * r * (self.meas_l + self.meas_r)
+        return d["omega_req_radps"], d["omega_radps"], r * (self.meas_r - self.meas_l) / w
+
+    def _wheel_request(self, axis: str) -> np.ndarray:
+        d, rec = self.rec.data, self.rec
+        if rec.wheel_radius_m is None or rec.track_width_m is None:
+            return d[f"{axis}_cmd_radps"]
+        half = 0.5 * rec.track_width_m * d["omega_req_radps"]
+        sign = -1.0 if axis == "left" else 1.0
+        return (d["v_req_mps"] + sign * half) / rec.wheel_radius_m
+
+    def derivative(self, axis: str, which: str, order: int) -> np.ndarray | None:
+        key = (axis, which, order)
+        if key not in self._deriv:
+            signals = self.axis(axis)
+            if signals is None:
+                return None
+            self._deriv[key] = analysis.derivative(self.t, signals[1 if which == "cmd" else 2], order)
+        return self._deriv[key]
+
+
+def _edges(seg: Segment) -> list[float]:
+    if seg.kind == "step":
+        return [seg.t_start_s + seg.lead_s]
+    if seg.kind == "square" and seg.period_s > 0:
+        return list(seg.t_start_s + np.arange(0.0, seg.t_end_s - seg.t_start_s - 1e-9, seg.period_s / 2))
+    return []
+
+
+def _median_metrics(metrics: list[StepMetrics]) -> StepMetrics | None:
+    if not metrics:
+        return None
+    if len(metrics) == 1:
+        return metrics[0]
+
+    def med(name: str) -> float | None:
+        values = [getattr(m, name) for m in metrics if getattr(m, name) is not None]
+        return float(np.median(values)) if values else None
+
+    first = metrics[0]
+    return StepMetrics(first.t_step_s, first.request_before, first.request_after, first.initial, first.final,
+                       med("dead_time_s"), med("rise_time_s"), med("overshoot_pct"), med("settling_time_s"),
+                       float(np.median([m.steady_state_error for m in metrics])))
+
+
+def _peak(values: np.ndarray | None, rows: np.ndarray) -> float | None:
+    if values is None or not np.any(rows):
+        return None
+    chunk = np.abs(values[rows])
+    return float(np.nanmax(chunk)) if np.any(np.isfinite(chunk)) else None
+
+
+def _segment_report(sig: _Signals, seg: Segment) -> SegmentReport:
+    t = sig.t
+    rows = (t >= seg.t_start_s) & (t < seg.t_end_s)
+    axis = seg.axis if sig.axis(seg.axis) is not None else "left"
+    req, cmd, meas = sig.axis(axis)
+    metrics = []
+    edges = _edges(seg)
+    for i, edge in enumerate(edges):
+        end = edges[i + 1] if i + 1 < len(edges) else seg.t_end_s
+        before = req[(t < edge)][-1:] if np.any(t < edge) else req[:1]
+        after = req[(t >= edge + 1e-9)][:1]
+        if after.size == 0:
+            continue
+        m = analysis.step_metrics(t, meas, edge, float(before[0]), float(after[0]), end)
+        if m is not None:
+            metrics.append(m)
+    err_l = sig.cmd_l - sig.meas_l
+    err_r = sig.cmd_r - sig.meas_r
+    mismatch = (err_l - err_r)[rows]
+    track = (cmd - meas)[rows]
+    finite = np.isfinite(track)
+    return SegmentReport(
+        seg.index, seg.name, seg.kind, axis, UNITS[axis], seg.bypass, seg.t_start_s, seg.t_end_s,
+        _median_metrics(metrics), len(metrics),
+        _peak(sig.derivative(axis, "meas", 1), rows), _peak(sig.derivative(axis, "meas", 2), rows),
+        _peak(sig.derivative(axis, "cmd", 1), rows), _peak(sig.derivative(axis, "cmd", 2), rows),
+        float(np.sqrt(np.mean(track[finite] ** 2))) if np.any(finite) else None,
+        float(np.sqrt(np.nanmean(mismatch ** 2))) if np.any(np.isfinite(mismatch)) else None,
+        float(np.nanmax(np.abs(mismatch))) if np.any(np.isfinite(mismatch)) else None,
+    )
+
+
+def analyze(rec: Recording, speed_error_mps: float | None = None) -> Report:
+    sig = _Signals(rec)
+    notes: list[str] = []
+    if not sig.body:
+        notes.append("no geometry in the sidecars: speed and turn-rate metrics and suggested limits are left out")
+    if rec.bench is None:
+        notes.append("no bench sidecar (<csv>.bench.json): the whole recording is one segment")
+    elif rec.bench.get("bypass_through_shaper"):
+        notes.append("the loop had no raw wheel requests: segments marked around the shaper ran through it")
+    segments = tuple(_segment_report(sig, seg) for seg in rec.segments)
+    fits = {w: analysis.fit_fopdt(rec.t, rec.data[f"{w}_cmd_radps"], rec.data[f"{w}_meas_radps"])
+            for w in ("left", "right")}
+    limits = None
+    if sig.body:
+        if speed_error_mps is None:
+            speed_error_mps = (DEFAULT_SPEED_ERROR_SHARE * rec.top_speed_mps if rec.top_speed_mps
+                               else DEFAULT_SPEED_ERROR_MPS)
+        limits = analysis.suggest_limits(fits, rec.wheel_radius_m, rec.track_width_m, speed_error_mps)
+    units = None
+    if rec.bench is not None:
+        units = _profile_units(rec)
+    polarity = check_polarity(rec, units)
+    return Report(str(rec.path), rec.program, float(rec.t[-1] - rec.t[0]), int(rec.t.size), segments, fits,
+                  limits, polarity, tuple(notes))
+
+
+def _profile_units(rec: Recording) -> dict[str, object]:
+    from console.record import sidecar_path
+
+    try:
+        meta = json.loads(sidecar_path(rec.path).read_text(encoding="utf-8"))
+        return dict(((meta.get("profile") or {}).get("data") or {}).get("units") or {})
+    except (OSError, ValueError):
+        return {}
+
+
+# --- writing -----------------------------------------------------------------------------------------------------
+
+def _decimate(t: np.ndarray, y: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """At most ~PLOT_POINTS points per line: the min and max of each bin, so spikes stay visible."""
+    n = t.size
+    if n <= PLOT_POINTS:
+        return t, y
+    size = int(math.ceil(n / (PLOT_POINTS // 2)))
+    m = (n // size) * size
+    tb = t[:m].reshape(-1, size)
+    yb = np.nan_to_num(y[:m], nan=0.0).reshape(-1, size)
+    lo, hi = yb.argmin(axis=1), yb.argmax(axis=1)
+    first = np.minimum(lo, hi)
+    second = np.maximum(lo, hi)
+    rows = np.arange(tb.shape[0])
+    ts = np.column_stack([tb[rows, first], tb[rows, second]]).ravel()
+    ys = np.column_stack([yb[rows, first], yb[rows, second]]).ravel()
+    return ts, ys
+
+
+def _figures(rec: Recording, report: Report, out: Path) -> list[Path]:
+    import matplotlib
+
+    matplotlib.use("Agg")
+    from matplotlib import pyplot as plt
+
+    sig = _Signals(rec)
+    t = rec.t
+    axes_shown = [a for a in ("speed", "turn", "left", "right") if sig.axis(a) is not None]
+    paths = []
+
+    def mark(ax: Any) -> None:
+        for seg in rec.segments[1:]:
+            ax.axvline(seg.t_start_s, color="0.8", lw=0.6, zorder=0)
+        ax.grid(True, lw=0.3)
+
+    fig, axs = plt.subplots(len(axes_shown), 1, figsize=(11, 2.3 * len(axes_shown)), sharex=True, squeeze=False)
+    for ax, name in zip(axs[:, 0], axes_shown):
+        req, cmd, meas = sig.axis(name)
+        for values, label, style in ((req, "request", ":"), (cmd, "command", "-"), (meas, "measured", "-")):
+            ax.plot(*_decimate(t, values), style, lw=0.8, label=label)
+        ax.set_ylabel(f"{name} ({UNITS[name]})")
+        mark(ax)
+    axs[0, 0].legend(loc="upper right", fontsize=8)
+    axs[-1, 0].set_xlabel("t (s)")
+    fig.suptitle("command vs response")
+    paths.append(_save(fig, out / FIGURES[0]))
+
+    fig, axs = plt.subplots(len(axes_shown), 1, figsize=(11, 2.3 * len(axes_shown)), sharex=True, squeeze=False)
+    for ax, name in zip(axs[:, 0], axes_shown):
+        for which, label in (("cmd", "commanded"), ("meas", "achieved")):
+            ax.plot(*_decimate(t, sig.derivative(name, which, 1)), lw=0.8, label=label)
+        ax.set_ylabel(f"d {name}/dt ({UNITS[name]}/s)")
+        mark(ax)
+    axs[0, 0].legend(loc="upper right", fontsize=8)
+    axs[-1, 0].set_xlabel("t (s)")
+    fig.suptitle("acceleration (Savitzky-Golay derivative)")
+    paths.append(_save(fig, out / FIGURES[1]))
+
+    fig, axs = plt.subplots(2, 1, figsize=(11, 4.6), sharex=True)
+    if sig.body:
+        _, cmd, meas = sig.axis("speed")
+        axs[0].plot(*_decimate(t, cmd - meas), lw=0.8, label="speed (m/s)")
+        if report.limits is not None:
+            for sign in (1, -1):
+                axs[0].axhline(sign * report.limits.speed_error_mps, color="C3", lw=0.6, ls="--")
+        axs[0].set_ylabel("command - measured")
+        axs[0].legend(loc="upper right", fontsize=8)
+    mark(axs[0])
+    err_l, err_r = sig.cmd_l - sig.meas_l, sig.cmd_r - sig.meas_r
+    axs[1].plot(*_decimate(t, err_l), lw=0.8, label="left")
+    axs[1].plot(*_decimate(t, err_r), lw=0.8, label="right")
+    axs[1].plot(*_decimate(t, err_l - err_r), lw=0.8, label="left - right")
+    axs[1].set_ylabel("wheel error (rad/s)")
+    axs[1].set_xlabel("t (s)")
+    axs[1].legend(loc="upper right", fontsize=8)
+    mark(axs[1])
+    fig.suptitle("tracking error")
+    paths.append(_save(fig, out / FIGURES[2]))
+    plt.close("all")
+    return paths
+
+
+def _save(fig: Any, path: Path) -> Path:
+    tmp = path.with_name(path.stem + ".tmp.png")
+    fig.tight_layout()
+    fig.savefig(tmp, dpi=90)
+    os.replace(tmp, path)
+    return path
+
+
+def _fmt(value: float | None, digits: str = ".3g") -> str:
+    return "-" if value is None else format(value, digits)
+
+
+def markdown(report: Report) -> str:
+    name = Path(report.recording).name
+    lines = [f"# Bench report: {name}", ""]
+    lines.append(f"Program: {report.program or 'unknown'}; {report.rows} rows over {report.duration_s:.1f} s.")
+    lines += ["", *[f"- {note}" for note in report.notes], ""] if report.notes else [""]
+    lines += ["## Segments", "",
+              "| # | segment | axis | dead time s | rise 10-90 % s | overshoot % | settling 2 % s | steady-state error"
+              " | peak accel (cmd / achieved) | peak jerk (cmd / achieved) | tracking RMS | L-R mismatch RMS / peak"
+              " rad/s |",
+              "|---|---|---|---|---|---|---|---|---|---|---|---|"]
+    for s in report.segments:
+        m = s.step
+        lines.append(
+            f"| {s.index} | {s.name}{' (around the shaper)' if s.bypass else ''} | {s.axis} ({s.unit}) | "
+            f"{_fmt(m.dead_time_s if m else None)} | {_fmt(m.rise_time_s if m else None)} | "
+            f"{_fmt(m.overshoot_pct if m else None, '.1f')} | {_fmt(m.settling_time_s if m else None)} | "
+            f"{_fmt(m.steady_state_error if m else None)} | {_fmt(s.peak_accel_cmd)} / {_fmt(s.peak_accel)} | "
+            f"{_fmt(s.peak_jerk_cmd)} / {_fmt(s.peak_jerk)} | {_fmt(s.tracking_rms)} | "
+            f"{_fmt(s.mismatch_rms_radps)} / {_fmt(s.mismatch_peak_radps)} |")
+    lines += ["", "Step metrics are timed from the request step, relative to the response's own change; "
+              "peak accelerations and jerks are per second of the axis unit.", "",
+              "## Wheel response (first order plus dead time)", "",
+              "| wheel | gain | time constant s | dead time s | R^2 | NRMSE |", "|---|---|---|---|---|---|"]
+    for wheel, fit in report.fits.items():
+        if fit is None:
+            lines.append(f"| {wheel} | - | - | - | - | - |")
+        else:
+            lines.append(f"| {wheel} | {fit.gain:.3f} | {fit.tau_s:.4f} | {fit.dead_time_s:.4f} | {fit.r2:.4f} | "
+                         f"{fit.nrmse:.4f} |")
+    if report.limits is not None:
+        lines += ["", "## Suggested limits", "", "```toml", report.limits.snippet(name).rstrip(), "```"]
+    if report.polarity is not None:
+        lines += ["", "## Polarity and encoder check", ""]
+        lines += [f"- **{f.kind}**: {f.text}" for f in report.polarity.findings]
+        snippet = report.polarity.snippet()
+        if snippet:
+            lines += ["", "Profile change:", "", "```toml", snippet.rstrip(), "```"]
+    lines += ["", "## Figures", ""]
+    lines += [f"![{Path(f).stem}]({f})" for f in FIGURES]
+    return "\n".join(lines) + "\n"
+
+
+def write_report(rec: Recording, report: Report, out: Path) -> list[Path]:
+    """summary.md, report.json and the figures into `out` (each written to a temporary name, then renamed)."""
+    out.mkdir(parents=True, exist_ok=True)
+    paths = _figures(rec, report, out)
+    for name, text in (("report.json", json.dumps(report.to_json(), indent=2) + "\n"),
+                       ("summary.md", markdown(report))):
+        tmp = out / (name + ".tmp")
+        tmp.write_text(text, encoding="utf-8")
+        os.replace(tmp, out / name)
+        paths.append(out / name)
+    return paths

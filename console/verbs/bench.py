@@ -1,0 +1,137 @@
+"""`diffdeck bench PROFILE PROGRAM [--link URL] [--out DIR]`: run a test program headless and record it.
+
+On the simulated robot the run uses the virtual clock (as fast as the CPU allows); on hardware it runs in real time
+and only after a typed confirmation, because a bench program drives the motors by itself.
+"""
+
+from __future__ import annotations
+
+import argparse
+import signal
+import sys
+import time
+from pathlib import Path
+from types import FrameType
+
+from rich.console import Console
+from rich.progress import BarColumn, Progress, TextColumn, TimeRemainingColumn
+
+from console.bench.program import BUILTINS, resolve_program
+from console.bench.run import BenchResult, BenchRun
+from console.errors import DiffdeckError, InputError, LinkLost, RobotFault
+from console.loop import StopCause
+from console.profile import load_profile
+
+NAME = "bench"
+HELP = "run a bench test program (built-in or TOML) on the robot, wheels off the ground, and record it"
+ORDER = 60
+
+CONFIRMATION = "wheels up"
+EXIT_INTERRUPTED = 130
+STOP_WAIT_S = 30.0
+"""Longest a Ctrl-C waits for the controlled stop to finish before the run is closed anyway."""
+CAUTION = ("Bench test: the robot moves by itself. Wheels OFF THE GROUND (robot on a stand), a hardware emergency "
+           "stop within reach. A software stop is not a safety function.")
+
+
+def add_arguments(parser: argparse.ArgumentParser) -> None:
+    parser.add_argument("profile", metavar="PROFILE", help="robot profile (TOML)")
+    parser.add_argument("program", metavar="PROGRAM",
+                        help="a built-in program (" + ", ".join(BUILTINS) + ") or a program file (TOML)")
+    parser.add_argument("--link", metavar="URL", help="override the profile's link: sim or a pyserial URL")
+    parser.add_argument("--out", metavar="DIR", default="recordings", help="folder for the recording (default: "
+                        "recordings)")
+
+
+class _Interrupts:
+    """Ctrl-C counted, never raised in the middle of a control cycle."""
+
+    def __init__(self) -> None:
+        self.count = 0
+        self._previous = signal.signal(signal.SIGINT, self._handle)
+
+    def _handle(self, signum: int, frame: FrameType | None) -> None:
+        self.count += 1
+
+    def restore(self) -> None:
+        signal.signal(signal.SIGINT, self._previous)
+
+
+def _confirm(console: Console, run: BenchRun) -> None:
+    console.print(f"[bold]{CAUTION}[/]")
+    console.print(f"Type [bold]{CONFIRMATION}[/] to confirm the wheels are off the ground and the hardware stop is "
+                  "within reach:")
+    answer = sys.stdin.readline()
+    if answer.strip().lower() != CONFIRMATION:
+        raise InputError("bench", "confirmation", answer.strip() or "(none)",
+                         f"type exactly {CONFIRMATION!r} to run on {run.url}")
+
+
+def _outcome(result: BenchResult, interrupted: bool) -> int:
+    kept = f"; recording kept in {result.recording}"
+    if result.failure is not None:
+        raise LinkLost(f"bench: {result.failure}{kept}")
+    if result.cause is StopCause.LINK_LOST:
+        raise LinkLost(f"bench: link lost during the program; the robot's own watchdog must stop it{kept}")
+    if result.cause in (StopCause.WATCHDOG, StopCause.FAULT):
+        raise RobotFault(f"bench: the robot reported a {result.cause.value}; the console stopped{kept}")
+    return EXIT_INTERRUPTED if interrupted or not result.completed else 0
+
+
+def run(args: argparse.Namespace) -> int:
+    profile = load_profile(args.profile)
+    program = resolve_program(args.program)
+    out = Path(args.out)
+    if out.exists() and not out.is_dir():
+        raise InputError("command line", "--out", args.out, "a folder")
+    console = Console(stderr=True)
+    bench = BenchRun(profile, program, out_dir=out, link_url=args.link)
+    if program.bypasses:
+        names = ", ".join(b.segment.name for b in bench.bound.segments if b.segment.bypass)
+        console.print(f"[bold yellow]Caution:[/] segments {names} run AROUND the shaper: no acceleration or jerk "
+                      "limit, only the wheel-rate limit. The motors see raw steps.")
+        if not bench.bypass_available:
+            console.print("[yellow]This control loop has no raw wheel requests yet: those segments go through the "
+                          "shaper.[/]")
+    if not bench.fast:
+        try:
+            _confirm(console, bench)
+        except DiffdeckError:
+            bench.close()
+            bench.path.unlink(missing_ok=True)      # nothing ran: leave no empty recording behind
+            for side in (bench.path.with_name(bench.path.name + ".json"),
+                         bench.path.with_name(bench.path.name + ".bench.json")):
+                side.unlink(missing_ok=True)
+            raise
+    else:
+        console.print(CAUTION)
+    console.print(f"bench: {program.name} ({bench.bound.duration_s:g} s) on {profile.name} over {bench.url}"
+                  f"{' (virtual clock)' if bench.fast else ''}; recording to {bench.path}")
+    interrupts = _Interrupts()
+    try:
+        with Progress(TextColumn("{task.description}"), BarColumn(), TextColumn("{task.fields[segment]}"),
+                      TimeRemainingColumn(), console=console, transient=False) as bar:
+            task = bar.add_task(program.name, total=bench.bound.duration_s, segment="")
+            if not bench.fast:
+                bench.start()
+            stop_asked_at: float | None = None
+            while not bench.progress.done:
+                if interrupts.count and stop_asked_at is None:
+                    bench.stop()
+                    stop_asked_at = time.monotonic()
+                    console.print("bench: Ctrl-C: controlled stop; the recording is kept")
+                if stop_asked_at is not None and time.monotonic() - stop_asked_at > STOP_WAIT_S:
+                    break
+                if bench.fast:
+                    bench.step(50)
+                else:
+                    time.sleep(0.05)
+                progress = bench.progress
+                bar.update(task, completed=progress.t_s,
+                           segment=f"{progress.segment_index + 1}/{progress.segment_count} {progress.segment_name}")
+    finally:
+        interrupts.restore()
+        result = bench.close()
+    console.print(f"bench: recording {result.recording} (+ {result.bench_sidecar.name}); "
+                  f"next: diffdeck report {result.recording}")
+    return _outcome(result, interrupts.count > 0)
