@@ -205,5 +205,10 @@ def stretch_ramp(ramp: Ramp, limits: AxisLimits, duration: float) -> Ramp:
         v_start += a_start * piece_time + 0.5 * jerk * piece_time * piece_time
         a_start += jerk * piece_time
         first_time += piece_time
-    last = _stretched_rising(direction * ramp.target - v_start, a_start, limits.jerk, duration - first_time)
+    remaining = duration - first_time
+    last = _stretched_rising(direction * ramp.target - v_start, a_start, limits.jerk, remaining)
+    if abs(sum(piece_time for piece_time, _ in last) - remaining) > 1e-9 * max(1.0, remaining):
+        # a degenerate last stage (a step of a few ulp left after rounding): arrive as planned, then wait there
+        last = ramp._pieces[ramp._split :]
+        last = last + [(remaining - sum(piece_time for piece_time, _ in last), 0.0)]
     return Ramp(ramp.v0, ramp.a0, ramp.target, direction, first + last, ramp._split)

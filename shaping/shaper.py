@@ -98,6 +98,27 @@ def _speed_bound_along(v0: float, v1: float, limits: AxisLimits) -> float:
     return limits.accel if abs(v1) >= abs(v0) else limits.decel
 
 
+def _common_rate(
+    speed_state: tuple[float, float], turn_state: tuple[float, float], target: tuple[float, float],
+    speed: AxisLimits, turn: AxisLimits,
+) -> float | None:
+    """d(sigma)/dt if both accelerations already point along the step to the target, else None.
+
+    Taken from the axis with the larger step relative to its acceleration limit; the other axis's acceleration
+    must then match sigma' times its step to within 1e-9 of its own limit.
+    """
+    (v, a), (w, alpha) = speed_state, turn_state
+    dv, dw = target[0] - v, target[1] - w
+    speed_accel = max(speed.accel, speed.decel)
+    if abs(dv) / speed_accel >= abs(dw) / turn.accel:
+        if dv == 0.0:
+            return 0.0 if a == 0.0 and alpha == 0.0 else None
+        rate = a / dv
+        return rate if abs(rate * dw - alpha) <= 1e-9 * turn.accel else None
+    rate = alpha / dw
+    return rate if abs(rate * dv - a) <= 1e-9 * speed_accel else None
+
+
 # (v, a, j, omega, alpha, turn_jerk)
 _Sample = tuple[float, float, float, float, float, float]
 
@@ -228,10 +249,10 @@ class Shaper:
     ) -> _AxesMotion | _LineMotion:
         limits = self.envelope.limits
         speed, turn = speed_limits(limits, stop), turn_limits(limits, stop)
-        (v, a), (w, alpha) = speed_state, turn_state
-        dv, dw = target[0] - v, target[1] - w
-        if self.mode is Mode.SYNCED and abs(a * dw - alpha * dv) <= 1e-9 * (abs(a * dw) + abs(alpha * dv)) + 1e-12:
-            return self._plan_line(speed_state, turn_state, target, speed, turn)
+        if self.mode is Mode.SYNCED:
+            sigma_rate = _common_rate(speed_state, turn_state, target, speed, turn)
+            if sigma_rate is not None:
+                return self._plan_line(speed_state, turn_state, target, sigma_rate, speed, turn)
         return self._plan_axes(speed_state, turn_state, target, speed, turn)
 
     def _way_inside(self, motion: _AxesMotion | _LineMotion) -> bool:
@@ -263,7 +284,7 @@ class Shaper:
 
     def _plan_line(
         self, speed_state: tuple[float, float], turn_state: tuple[float, float], target: tuple[float, float],
-        speed: AxisLimits, turn: AxisLimits,
+        sigma_rate: float, speed: AxisLimits, turn: AxisLimits,
     ) -> _LineMotion:
         (v, a), (w, alpha) = speed_state, turn_state
         dv, dw = target[0] - v, target[1] - w
@@ -282,9 +303,11 @@ class Shaper:
             wheel_step = max(abs(x) for x in geometry.to_wheels(dv, dw))
             if wheel_step > 0.0:
                 accel_bounds.append(wheel_accel / wheel_step)
-        sigma_accel = min(accel_bounds)
-        sigma_rate = a / dv if dv != 0.0 else alpha / dw
-        sigma = plan_ramp(0.0, sigma_rate, 1.0, AxisLimits(sigma_accel, sigma_accel, min(jerk_bounds)))
+        sigma_accel, sigma_jerk = min(accel_bounds), min(jerk_bounds)
+        if not all(map(math.isfinite, (sigma_accel, sigma_jerk, sigma_rate))):
+            # a step so small (subnormal) that its limits overflow: it is already done
+            return _LineMotion(standstill(1.0), (v, w), target)
+        sigma = plan_ramp(0.0, sigma_rate, 1.0, AxisLimits(sigma_accel, sigma_accel, sigma_jerk))
         return _LineMotion(sigma, (v, w), target)
 
     def _plan_axes(
