@@ -98,8 +98,8 @@ class _Motor:
         self._active = 0.0
         self._last_in = 0.0
 
-    def step(self, t: float, dt: float, command: float) -> float:
-        """Advance from time t by dt with `command` arriving at t; return the mean wheel rate over the step."""
+    def _target(self, t: float, command: float) -> float:
+        """Take in `command` arriving at t, release what the delay line holds for t; return the motor's target."""
         if command != self._last_in:
             self._queue.append((t + self.dead, command))
             self._last_in = command
@@ -108,11 +108,13 @@ class _Motor:
             self._active = queue.popleft()[1]
         u = self._active
         if -self.deadband < u < self.deadband:
-            u = 0.0
-        elif u > self.max_rate:
-            u = self.max_rate
-        elif u < -self.max_rate:
-            u = -self.max_rate
+            return 0.0
+        if u > self.max_rate:
+            return self.max_rate
+        return -self.max_rate if u < -self.max_rate else u
+
+    def _evolve(self, u: float, dt: float) -> float:
+        """Closed-form step of the torque-limited lag toward u; return the mean wheel rate over dt."""
         rate = self.rate
         error = u - rate
         if error == 0.0:
@@ -142,6 +144,38 @@ class _Motor:
         self.rate = u if -_SETTLED_RADPS < error < _SETTLED_RADPS else u - error
         self.angle += travelled
         return travelled / dt
+
+    def run(self, t: float, h: float, n: int, command: float) -> list[float]:
+        """n sub-steps of h from time t, `command` arriving at t: the mean wheel rate over each sub-step.
+
+        Between delay-line events the target is constant; where the torque limit does not bind there, the means
+        follow a geometric sequence (the same closed form as `_evolve`, without recomputing exp per sub-step).
+        """
+        means: list[float] = []
+        k = 0
+        while k < n:
+            u = self._target(t + k * h, command)
+            queue = self._queue
+            end = n if not queue else min(n, max(k + 1, math.ceil((queue[0][0] - _TIME_EPS_S - t) / h)))
+            error = u - self.rate
+            if error == 0.0 or -self.accel * self.tau <= error <= self.accel * self.tau and self.tau > 0.0:
+                decay = math.exp(-h / self.tau) if self.tau > 0.0 else 0.0
+                lag = self.tau * (1.0 - decay) / h
+                travelled = 0.0
+                for _ in range(end - k):
+                    mean = u - error * lag
+                    means.append(mean)
+                    travelled += mean
+                    error *= decay
+                    if -_SETTLED_RADPS < error < _SETTLED_RADPS:
+                        error = 0.0
+                self.rate = u - error
+                self.angle += travelled * h
+            else:
+                for _ in range(end - k):
+                    means.append(self._evolve(u, h))
+            k = end
+        return means
 
 
 class Plant:
@@ -194,24 +228,24 @@ class Plant:
 
     def advance(self, dt_s: float, left_cmd_radps: float, right_cmd_radps: float) -> None:
         """Advance by dt with the firmware's channel commands (wheel rad/s); no measurement is made."""
+        self.run(1, dt_s, left_cmd_radps, right_cmd_radps)
+
+    def run(self, n: int, h_s: float, left_cmd_radps: float, right_cmd_radps: float) -> None:
+        """n sub-steps of h with the same channel commands: the same as n calls of advance(h), in one loop."""
         if self._swap:
             left_cmd_radps, right_cmd_radps = right_cmd_radps, left_cmd_radps
-        left_u = self._left_gain * left_cmd_radps
-        right_u = self._right_gain * right_cmd_radps
         t = self.t_s
-        left_mean = self._left.step(t, dt_s, left_u)
-        right_mean = self._right.step(t, dt_s, right_u)
-        self.t_s = t + dt_s
-        left_speed = self.left_radius_m * left_mean
-        right_speed = self.right_radius_m * right_mean
-        self.x_m, self.y_m, self.heading_rad = arc_step(
-            self.x_m,
-            self.y_m,
-            self.heading_rad,
-            0.5 * (left_speed + right_speed),
-            (right_speed - left_speed) / self.track_m,
-            dt_s,
-        )
+        lefts = self._left.run(t, h_s, n, self._left_gain * left_cmd_radps)
+        rights = self._right.run(t, h_s, n, self._right_gain * right_cmd_radps)
+        r_left, r_right, track = self.left_radius_m, self.right_radius_m, self.track_m
+        x, y, heading = self.x_m, self.y_m, self.heading_rad
+        for left_mean, right_mean in zip(lefts, rights):
+            left_speed = r_left * left_mean
+            right_speed = r_right * right_mean
+            x, y, heading = arc_step(x, y, heading, 0.5 * (left_speed + right_speed),
+                                     (right_speed - left_speed) / track, h_s)
+        self.x_m, self.y_m, self.heading_rad = x, y, heading
+        self.t_s = t + n * h_s
 
     def measure(self) -> PlantState:
         """What the encoders report now, per firmware channel (noise drawn here, once per measurement)."""
