@@ -12,7 +12,10 @@ Choices (see PROTOCOL.md, "Firmware templates"):
   power removed at once), the most conservative reading of a firmware's "halt".
 - 0 V battery reads as None (not measured), as in the diffdeck protocol.
 - The simulated robot reads command lines back with a regular expression derived from the format string (one number
-  per field), and renders telemetry from `telemetry_format` (a regular expression cannot be inverted in general).
+  per field). For its telemetry it needs the inverse of telemetry_regex, which does not exist in general: a regex of
+  literal text and named groups (the usual line protocol) is turned into a str.format line by
+  `telemetry_format_from_regex`; for any other regex the caller gives the line as `telemetry_format`.
+- A template seq echo outside 0..65535 is not one the console sent: it reads as None.
 """
 
 from __future__ import annotations
@@ -23,7 +26,7 @@ import string
 from collections.abc import Mapping
 from typing import TYPE_CHECKING
 
-from console.protocol import Flags, Heartbeat, StopCommand, Telemetry, WheelCommand
+from console.protocol import SEQ_MODULUS, Flags, Heartbeat, StopCommand, Telemetry, WheelCommand
 
 if TYPE_CHECKING:
     from console.profile import TemplateConfig
@@ -110,11 +113,103 @@ class _FormatReader:
         return None if m is None else {k: _value(k, v) for k, v in m.groupdict().items()}
 
 
+_METACHARACTERS = frozenset(".^$*+?{}[]|()\\")
+_WHITESPACE = {"s": " ", "t": "\t", "r": "\r"}
+_QUANTIFIER = re.compile(r"[*+?]|\{(\d+)(?:,\d*)?\}")
+_RATE_FORMATS = tuple(f":{sign}.{digits}f" for digits in (4, 3, 2, 1, 0) for sign in ("", "+"))
+# per telemetry field: the renderings tried (most precise first) and the values each must render acceptably
+_FIELD_FORMATS: dict[str, tuple[tuple[str, ...], tuple[float, ...]]] = {
+    "left": (_RATE_FORMATS, (-12.5, 3.25, 0.0)),
+    "right": (_RATE_FORMATS, (-12.5, 3.25, 0.0)),
+    "battery_v": (_RATE_FORMATS, (24.5, 12.0, 0.0)),
+    "seq": ((":d", ":05d"), (0, 42, 65535)),
+    "watchdog": ((":d",), (0, 1)),
+    "fault": ((":d",), (0, 1)),
+}
+
+
+def _group_end(regex: str, start: int) -> int:
+    """Index of the ")" closing the group that opens at `start` (escapes and [...] classes skipped)."""
+    depth, i, in_class = 0, start, False
+    while i < len(regex):
+        c = regex[i]
+        if c == "\\":
+            i += 1
+        elif in_class:
+            in_class = c != "]"
+        elif c == "[":
+            in_class = True
+            i += 2 if regex.startswith("^]", i + 1) else 1 if regex.startswith("]", i + 1) else 0  # leading "]"
+        elif c == "(":
+            depth += 1
+        elif c == ")":
+            depth -= 1
+            if depth == 0:
+                return i
+        i += 1
+    raise ValueError("unbalanced parentheses")
+
+
+def _field_format(name: str, inner: str) -> str:
+    """"{name:spec}" with the first spec whose rendering the group's own pattern accepts for every sample value."""
+    if name not in _FIELD_FORMATS:
+        raise ValueError(f"group (?P<{name}>...) is not a telemetry field")
+    try:
+        pattern = re.compile(inner)
+    except re.error as e:
+        raise ValueError(f"group (?P<{name}>{inner}) on its own: {e}") from None
+    specs, samples = _FIELD_FORMATS[name]
+    for spec in specs:
+        if all(pattern.fullmatch(format(value, spec[1:])) for value in samples):
+            return "{" + name + spec + "}"
+    raise ValueError(f"group (?P<{name}>{inner}) accepts none of the plain number renderings tried")
+
+
+def telemetry_format_from_regex(regex: str) -> str:
+    """The str.format line that renders what `regex` reads, for a regex of literal text and named groups.
+
+    Outside the groups only literal characters (escaped or not), \\s \\t \\r, the quantifiers + * ? {n} on a single
+    character, and ^ / $ at the ends are understood; anything else raises ValueError saying what.
+    """
+    out: list[str] = []
+    i = 0
+    while i < len(regex):
+        c = regex[i]
+        if regex.startswith("(?P<", i):
+            close = _group_end(regex, i)
+            name, _, inner = regex[i + 4:close].partition(">")
+            out.append(_field_format(name, inner))
+            i = close + 1
+            if _QUANTIFIER.match(regex, i):
+                raise ValueError(f"group (?P<{name}>...) with a quantifier after it")
+            continue
+        if (c == "^" and i == 0) or (c == "$" and i == len(regex) - 1):
+            i += 1
+            continue
+        if c == "\\" and regex[i + 1:i + 2] in _WHITESPACE:
+            atom = _WHITESPACE[regex[i + 1]]
+        elif c == "\\" and regex[i + 1:i + 2] in _METACHARACTERS | set(" -:,;/=#@!%&'\"<>~`"):
+            atom = regex[i + 1]
+        elif c in _METACHARACTERS:
+            raise ValueError(f"{regex[i:i + 12]!r}... (position {i}) is more than literal text and named groups")
+        else:
+            atom = c
+        i += 2 if c == "\\" else 1
+        m = _QUANTIFIER.match(regex, i)
+        count = 1 if m is None or m[0] == "+" else 0 if m[0] in "*?" else int(m[1])
+        i = i if m is None else m.end()
+        out.append((atom * count).replace("{", "{{").replace("}", "}}"))
+    return "".join(out)
+
+
 def _read_telemetry(values: Mapping[str, str | None]) -> Telemetry:
     """Telemetry from the regex groups that matched (missing ones None); ValueError on a bad number."""
     read = {k: _value(k, v) for k, v in values.items() if v is not None}
     flags = (Flags.WATCHDOG if read.get("watchdog") else 0) | (Flags.FAULT if read.get("fault") else 0)
-    return Telemetry(seq=None, echo_seq=read.get("seq"), left=read.get("left"), right=read.get("right"),
+    echo = read.get("seq")
+    if echo is not None and not 0 <= echo < SEQ_MODULUS:
+        echo = None
+    return Telemetry(seq=None, echo_seq=echo, left=read.get("left"), right=read.get("right"),
                      left_ticks=None, right_ticks=None, battery_v=read.get("battery_v") or None, flags=int(flags))
 
 
@@ -157,12 +252,13 @@ class TemplateCodec(_LineReader):
         return out
 
 
-def check_robot_side(template: TemplateConfig, telemetry_format: str | None) -> None:
-    """ValueError naming the key and what is wrong if the simulated robot cannot speak this template.
+def check_robot_side(template: TemplateConfig, telemetry_format: str | None = None) -> str:
+    """The telemetry line the simulated robot renders; ValueError naming the key and what is wrong if the simulated
+    robot cannot speak this template.
 
     It must read back the command and stop lines the console renders (and tell them apart), and its telemetry line
-    must be read back by telemetry_regex to the same values. Checked by a fixpoint: render the sample values, read
-    them back, render again: the two lines must be equal.
+    (`telemetry_format`, or derived from telemetry_regex when None) must be read back by telemetry_regex to the same
+    values. Checked by a fixpoint: render the sample values, read them back, render again: the lines must be equal.
     """
     readers = {}
     for key in ("command_format", "stop_format"):
@@ -184,8 +280,11 @@ def check_robot_side(template: TemplateConfig, telemetry_format: str | None) -> 
     if stop.regex.fullmatch(template.command_format.format(**SAMPLE_COMMAND)) is not None:
         raise ValueError(f"stop_format = {template.stop_format!r}: also matches a command line; make them differ")
     if telemetry_format is None:
-        raise ValueError("telemetry_format: missing; the simulated robot renders its telemetry with it "
-                         f"(fields: {', '.join(TELEMETRY_FIELDS)})")
+        try:
+            telemetry_format = telemetry_format_from_regex(template.telemetry_regex)
+        except ValueError as e:
+            raise ValueError(f"telemetry_regex = {template.telemetry_regex!r}: the simulated robot cannot derive its "
+                             f"telemetry line from it ({e}); give it as telemetry_format") from None
     names = {name for _, name, _, _ in string.Formatter().parse(telemetry_format) if name is not None}
     if not names <= set(TELEMETRY_FIELDS):
         raise ValueError(f"telemetry_format = {telemetry_format!r}: fields other than {', '.join(TELEMETRY_FIELDS)}")
@@ -203,18 +302,19 @@ def check_robot_side(template: TemplateConfig, telemetry_format: str | None) -> 
     if not same:
         raise ValueError(f"telemetry_format = {telemetry_format!r}: its line {line!r} is not read back by "
                          f"telemetry_regex = {template.telemetry_regex!r}")
+    return telemetry_format
 
 
 class TemplateRobotCodec(_LineReader):
     """Robot side (the simulated robot): the console's template lines -> WheelCommand / StopCommand; Telemetry ->
-    a line rendered with `telemetry_format`. Construction checks the template (check_robot_side)."""
+    a line rendered with `telemetry_format` (None: derived from telemetry_regex). Construction checks the template
+    (check_robot_side)."""
 
-    def __init__(self, template: TemplateConfig, telemetry_format: str | None) -> None:
-        check_robot_side(template, telemetry_format)
+    def __init__(self, template: TemplateConfig, telemetry_format: str | None = None) -> None:
+        self.telemetry_format = check_robot_side(template, telemetry_format)
         super().__init__()
         self._command = _FormatReader(template.command_format)
         self._stop = _FormatReader(template.stop_format)
-        self._telemetry_format = telemetry_format
 
     def feed(self, data: bytes) -> list[WheelCommand | StopCommand]:
         """Commands and stops in the bytes; a template without {seq} gives seq 0."""
@@ -237,7 +337,7 @@ class TemplateRobotCodec(_LineReader):
     def encode(self, telemetry: Telemetry) -> bytes:
         """The telemetry line; the template's seq field carries `echo_seq`, missing numbers render as 0."""
         flags = telemetry.flags
-        return _render(self._telemetry_format, {
+        return _render(self.telemetry_format, {
             "left": telemetry.left or 0.0, "right": telemetry.right or 0.0, "seq": telemetry.echo_seq or 0,
             "battery_v": telemetry.battery_v or 0.0,
             "watchdog": int(bool(flags & Flags.WATCHDOG)), "fault": int(bool(flags & Flags.FAULT)),

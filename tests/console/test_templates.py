@@ -3,12 +3,15 @@
 from __future__ import annotations
 
 import math
+from pathlib import Path
 
 import pytest
 from hypothesis import given
 from hypothesis import strategies as st
 
+from console.loop import ControlLoop, SafetyState, VirtualClock
 from console.profile import TemplateConfig, load_profile
+from console.sim.firmware import SimRobot
 from console.protocol import Flags, Heartbeat, StopCommand, Telemetry, WheelCommand
 from console.templates import (
     MAX_TEMPLATE_LINE,
@@ -16,10 +19,14 @@ from console.templates import (
     TemplateCodec,
     TemplateRobotCodec,
     check_robot_side,
+    telemetry_format_from_regex,
 )
 from console.transport import memory_pair
+from shaping.shaper import StopKind
 
-DEMO = load_profile("profiles/wren-template.toml").link.template
+ROOT = Path(__file__).resolve().parents[2]
+DEMO_PROFILE = load_profile(ROOT / "profiles" / "wren-template.toml")
+DEMO = DEMO_PROFILE.link.template
 # what the demo firmware's telemetry looks like (profiles/wren-template.toml, comment at the top)
 DEMO_TELEMETRY = "fb {seq:05d} L{left:+.4f} R{right:+.4f} bat{battery_v:.2f} wd{watchdog:d} flt{fault:d}"
 rates = st.floats(-1000.0, 1000.0, allow_nan=False)
@@ -137,7 +144,6 @@ def test_random_bytes_never_raise(data):
         ("d {left.real} {right}", "halt {seq}", DEMO_TELEMETRY, "plain field names"),
         ("d {left} {right}", "halt {seq:x}", DEMO_TELEMETRY, "stop_format"),             # hex cannot be read back
         ("d {left} {right}", "d {seq} 3.25", DEMO_TELEMETRY, "also matches a command"),
-        ("d {left} {right}", "halt", None, "telemetry_format: missing"),
         ("d {left} {right}", "halt", DEMO_TELEMETRY + " {speed}", "fields other than"),
         ("d {left} {right}", "halt", "fb {seq} L{left:+.4f} R{right:+.4f}", "exactly the telemetry_regex groups"),
         ("d {left} {right}", "halt", DEMO_TELEMETRY.replace("{battery_v:.2f}", "{battery_v:.0f}"), "not read back"),
@@ -154,3 +160,89 @@ def test_templates_the_simulated_robot_cannot_speak(command_format, stop_format,
 
 def test_demo_template_passes_the_check():
     check_robot_side(DEMO, DEMO_TELEMETRY)
+
+
+@pytest.mark.parametrize(
+    "regex",
+    [
+        DEMO.telemetry_regex,
+        r"^r\s+(?P<left>\S+) (?P<right>\S+)$",
+        r"T:(?P<left>-?\d+)\t(?P<right>-?\d+)\r?",
+        r"^x (?P<left>[+-]\d{1,3}\.\d{2}) (?P<right>[+-]\d{1,3}\.\d{2}) s=(?P<seq>\d{5}) \[ok\]$",
+        r"^\{(?P<left>[-\d.]+),(?P<right>[-\d.]+),(?P<fault>[01])\}$",
+    ],
+)
+@given(left=st.floats(-999.0, 999.0), right=st.floats(-999.0, 999.0), echo=st.integers(0, 65535))
+def test_telemetry_line_derived_from_a_plain_regex(regex, left, right, echo):
+    template = TemplateConfig("d {left} {right} {seq}", "halt {seq}", regex)
+    robot, console = TemplateRobotCodec(template), TemplateCodec(template)
+    assert robot.telemetry_format == telemetry_format_from_regex(regex)
+    [t] = console.feed(robot.encode(Telemetry(1, echo, left, right, 0, 0, 24.0, int(Flags.FAULT))))
+    # the values come back as the derived format rendered them (most precise rendering the group accepts)
+    fmt = robot.telemetry_format
+    assert (fmt.format(left=t.left, right=t.right, seq=t.echo_seq or 0, battery_v=24.0, watchdog=0,
+                       fault=1 if t.flags & Flags.FAULT else 0) + "\n").encode() == robot.encode(
+        Telemetry(1, echo, left, right, 0, 0, 24.0, int(Flags.FAULT)))
+    assert abs(t.left - left) <= 0.5 and abs(t.right - right) <= 0.5
+
+
+@pytest.mark.parametrize(
+    ("regex", "why"),
+    [
+        (r"^r (?P<left>\S+) (?P<right>\S+)|^x$", "more than literal text"),           # alternation
+        (r"^r (?P<left>\S+) (?P<right>\S+)(?: v(?P<battery_v>\S+))?$", "more than literal text"),  # optional part
+        (r"^r \d+ (?P<left>\S+) (?P<right>\S+)$", "more than literal text"),       # a number outside a group
+        (r"^r (?P<left>\S+)+ (?P<right>\S+)$", "quantifier after it"),
+        (r"^r (?P<left>[a-f]+) (?P<right>\S+)$", "accepts none of the plain number renderings"),
+    ],
+)
+def test_regexes_the_simulated_robot_cannot_invert_ask_for_telemetry_format(regex, why):
+    template = TemplateConfig("d {left} {right}", "halt", regex)
+    with pytest.raises(ValueError, match=why):
+        telemetry_format_from_regex(regex)
+    with pytest.raises(ValueError, match="give it as telemetry_format") as error:
+        TemplateRobotCodec(template)
+    assert "\n" not in str(error.value)
+
+
+def test_template_robot_drives_end_to_end_through_the_control_loop():
+    # The whole stack on the demo template profile: shaper -> units (duty) -> template lines -> simulated robot
+    # (template side) -> template telemetry -> measured wheel rates. Steady state of a first-order motor: the
+    # measured rate equals the command (common practice); the sim's deadband is far below the commanded rate.
+    clock = VirtualClock()
+    console_end, robot_end = memory_pair()
+    sim = SimRobot(DEMO_PROFILE, robot_end)
+    wire: list[bytes] = []
+
+    class Tap:
+        url = console_end.url
+
+        def write(self, data: bytes) -> None:
+            wire.append(data)
+            console_end.write(data)
+
+        def read(self) -> bytes:
+            return console_end.read()
+
+        def close(self) -> None:
+            console_end.close()
+
+    loop = ControlLoop(DEMO_PROFILE, Tap(), clock, sim=sim)
+    rate = DEMO_PROFILE.link.rate_hz
+    loop.run_cycles(round(0.5 * rate))
+    assert wire == []                              # disarmed: heartbeats render nothing on a template link
+    loop.arm()
+    loop.request(0.3, 0.0)
+    loop.run_cycles(round(4.0 * rate))
+    snap = loop.snapshot()
+    assert snap.state is SafetyState.ARMED
+    assert snap.left_meas_radps == pytest.approx(snap.shaped.left_radps, rel=0.02)
+    assert snap.right_meas_radps == pytest.approx(snap.shaped.right_radps, rel=0.02)
+    assert snap.shaped.left_radps == pytest.approx(0.3 / DEMO_PROFILE.geometry.wheel_radius_m, rel=1e-6)
+    assert snap.link.crc_errors == snap.link.unknown_frames == 0 and snap.link.rtt_s is not None
+    assert wire[0].startswith(b"drv ") and wire[0].endswith(b" L+0.0000 R+0.0000\n")   # the release line
+    loop.stop(StopKind.CONTROLLED)
+    loop.run_cycles(round(3.0 * rate))
+    assert loop.snapshot().state is SafetyState.STOPPED
+    assert wire[-1].startswith(b"halt ")
+    assert sim.plant.wheel_radps == pytest.approx((0.0, 0.0), abs=1e-6)
