@@ -29,9 +29,10 @@ from __future__ import annotations
 import math
 from typing import TYPE_CHECKING
 
-from console.errors import LinkLost
+from console.errors import InputError, LinkLost
 from console.protocol import SEQ_MODULUS, Codec, Flags, Frame, Heartbeat, StopCommand, Telemetry, WheelCommand
 from console.sim.plant import Plant
+from console.templates import TemplateRobotCodec
 from console.transport import Transport, memory_pair
 from shaping.units import WheelUnits
 
@@ -56,6 +57,17 @@ _SATURATED = int(Flags.SATURATED)
 _RELEASABLE = _STOPPED | _WATCHDOG | _POWER_OFF
 
 
+def _robot_codec(profile: Profile) -> Codec | TemplateRobotCodec:
+    """The robot side of the profile's protocol; a template the simulated robot cannot speak is a profile error."""
+    template = profile.link.template
+    if profile.link.protocol != "template" or template is None:
+        return Codec()
+    try:
+        return TemplateRobotCodec(template)
+    except ValueError as error:
+        raise InputError(str(profile.path), "link.template", template, f"the simulated robot: {error}") from None
+
+
 def _wrap_int32(count: int) -> int:
     return (count + _INT32 // 2) % _INT32 - _INT32 // 2
 
@@ -78,12 +90,7 @@ class SimRobot:
         self.plant = Plant(profile.geometry, sim)
         units = profile.units    # the unit only: polarity, swap and trim are the console's corrections
         self._units = WheelUnits(units.unit, units.ticks_per_rev, units.gear_ratio, units.full_duty_radps)
-        if profile.link.protocol == "template":
-            from console.templates import TemplateRobotCodec   # only template robots need it
-
-            self._codec = TemplateRobotCodec(profile.link.template)
-        else:
-            self._codec = Codec()
+        self._codec = _robot_codec(profile)
         self._watchdog_s = profile.link.watchdog_s
         self._ramp_radps2 = sim.wheel_accel_radps2
         self._max_rate = sim.max_wheel_rate_radps
@@ -209,6 +216,7 @@ class SimRobot:
         self._left_cmd = self._right_cmd = 0.0
         self._flags = (self._flags | _STOPPED | _POWER_OFF) & ~_SATURATED
         self.plant.halt()
+        self._last_wheel = (0.0, 0.0)    # power removed: no current, so no sag from the sudden stop
 
     def _ramp_down(self, h: float) -> None:
         """Commands toward zero at the torque limit; category 1 removes power once they are there."""

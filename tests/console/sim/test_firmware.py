@@ -14,9 +14,11 @@ from pathlib import Path
 
 import pytest
 
+from console.errors import InputError
 from console.profile import Profile, load_profile
 from console.protocol import Decoder, Flags, Heartbeat, StopCommand, Telemetry, WheelCommand, encode
 from console.sim.firmware import SimRobot
+from console.templates import TemplateCodec
 
 ROOT = Path(__file__).resolve().parents[3]
 WREN = ROOT / "profiles" / "wren.toml"
@@ -269,3 +271,57 @@ def test_closed_link_keeps_the_robot_running_and_the_watchdog_stops_it() -> None
     assert not console.robot.link_open
     assert console.robot.plant.wheel_radps == (0.0, 0.0)
     assert console.robot.flags & Flags.WATCHDOG
+
+
+TEMPLATE = ROOT / "profiles" / "wren-template.toml"
+
+
+def _template_profile() -> Profile:
+    profile = load_profile(TEMPLATE)
+    return dataclasses.replace(profile, sim=dataclasses.replace(profile.sim, noise_radps=0.0))
+
+
+def test_template_robot_end_to_end() -> None:
+    """profiles/wren-template.toml: duty-fraction command lines in, 'fb ...' telemetry lines out, via the console's
+    TemplateCodec exactly as the control loop uses it."""
+    profile = _template_profile()
+    robot = SimRobot(profile)
+    end = robot.console_end
+    codec = TemplateCodec(profile.link.template)
+    received: list[Telemetry] = []
+
+    def cycle(frame: WheelCommand | StopCommand | None, seconds: float = 0.02) -> None:
+        if frame is not None:
+            end.write(codec.encode(frame))
+        robot.advance(seconds)
+        received.extend(codec.feed(end.read()))
+
+    cycle(WheelCommand(1, 0.0, 0.0))                           # the release
+    for seq in range(2, 102):                                  # 2 s at 50 Hz (the profile's rate_hz)
+        cycle(WheelCommand(seq, *profile.units.to_motor(4.0, 6.0)))
+    assert codec.unknown_frames == codec.malformed == 0
+    last = received[-1]
+    assert last.echo_seq == 100 and last.flags == 0   # telemetry at 25 Hz: last sent in the cycle of seq 100
+    # duty = rate / full_duty_radps; 4 decimals of duty on the line: 22 rad/s * 0.5e-4 resolution
+    resolution = profile.units.full_duty_radps * 0.5e-4
+    assert robot.plant.wheel_radps == pytest.approx((4.0, 6.0), abs=resolution * 1.01)
+    assert profile.units.measured_from_motor(last.left, last.right) == pytest.approx((4.0, 6.0), abs=3 * resolution)
+    # A stop line: read as category 0 (templates carry no category): wheels to zero at once.
+    cycle(StopCommand(102, 2), 0.001)
+    assert robot.plant.wheel_radps == (0.0, 0.0)
+    # Silence after a new release and motion: the template's watchdog flag.
+    cycle(WheelCommand(103, 0.0, 0.0))
+    cycle(WheelCommand(104, *profile.units.to_motor(4.0, 4.0)))
+    for _ in range(100):
+        cycle(None)
+    assert received[-1].flags & Flags.WATCHDOG
+    assert robot.plant.wheel_radps == (0.0, 0.0)
+
+
+def test_a_template_the_simulated_robot_cannot_speak_is_a_profile_error() -> None:
+    profile = load_profile(TEMPLATE)
+    template = dataclasses.replace(profile.link.template, command_format="L{left}{right}")   # numbers run together
+    bad = dataclasses.replace(profile, link=dataclasses.replace(profile.link, template=template))
+    with pytest.raises(InputError) as raised:
+        SimRobot(bad)
+    assert str(TEMPLATE) in str(raised.value) and "link.template" in str(raised.value)
