@@ -202,8 +202,8 @@ class SuggestedLimits:
     """Limits a FOPDT wheel follows within a stated tracking error.
 
     A first-order lag with dead time trails a ramp of slope a by a * (tau + dead) once the transient has passed
-    (the ramp response of a first-order system, e.g. Ogata, Modern Control Engineering, 5th ed., 2010, sec. 5-3,
-    from memory); its acceleration obeys the same equation, so it trails a jerk j by j * (tau + dead).
+    (the unit-ramp response of a first-order system, Ogata, Modern Control Engineering, 5th ed., 2010, section on
+    first-order systems, from memory); its acceleration obeys the same equation, so it trails a jerk j by j * (tau + dead).
     """
 
     speed_error_mps: float
