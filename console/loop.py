@@ -13,6 +13,7 @@ from __future__ import annotations
 
 import enum
 import math
+import os
 import sys
 import threading
 import time
@@ -135,12 +136,13 @@ class CycleStats:
     once a second), never per cycle.
     """
 
-    def __init__(self, capacity: int = 1 << 15) -> None:
+    def __init__(self, capacity: int = 1 << 14) -> None:
         self._error = np.zeros(capacity)
         self._work = np.zeros(capacity)
         self._capacity = capacity
         self.count = 0
         self.error_max_s = 0.0
+        np.percentile(self._error[:2], (50.0, 99.0))   # the first call is slow (lazy set-up): not in a cycle
 
     def add(self, error_s: float, work_s: float) -> None:
         i = self.count % self._capacity
@@ -198,6 +200,8 @@ STATS_REFRESH_S = 1.0
 LIMIT_EVENT_HOLD_S = 0.25
 """An envelope limit is logged once it has clipped the request this long (a brief brush stays out of the log)."""
 ENVELOPE_BOUNDS = frozenset({Bound.SPEED, Bound.REVERSE_SPEED, Bound.TURN_RATE, Bound.WHEEL_RATE, Bound.SIDEWAYS_ACCEL})
+REALTIME_PRIORITY = 10
+"""SCHED_FIFO priority of the loop thread: above every normal process, below the kernel's own real-time threads."""
 SWITCH_INTERVAL_S = 0.0005
 """Longest a thread in pure Python holds the GIL while the loop thread waits for it (CPython's default is 5 ms)."""
 
@@ -259,6 +263,15 @@ def make_codec(link: LinkConfig) -> Any:
 
         return TemplateCodec(link.template)
     return Codec()
+
+
+def _raise_priority() -> str:
+    """Real-time scheduling for the calling thread if the OS grants it; says which scheduling the loop runs with."""
+    try:
+        os.sched_setscheduler(0, os.SCHED_FIFO, os.sched_param(REALTIME_PRIORITY))
+    except (AttributeError, OSError) as error:     # not Linux, or no privilege
+        return f"normal scheduling (real-time refused: {getattr(error, 'strerror', None) or error})"
+    return f"real-time scheduling (SCHED_FIFO {REALTIME_PRIORITY})"
 
 
 def _after(seq: int, ref: int) -> bool:
@@ -334,6 +347,7 @@ class ControlLoop:
         self._thread: threading.Thread | None = None
         self._closing = threading.Event()
         self.failure: BaseException | None = None
+        self.scheduling = "caller's thread"
         shaped = self._shaper.step(0.0, 0.0, 0.0)
         self._snapshot = self._make_snapshot(0.0, shaped, (0.0, 0.0))
 
@@ -379,15 +393,21 @@ class ControlLoop:
 
     # -- running ------------------------------------------------------------------------------------------------
 
-    def start(self) -> None:
-        """Run the loop in its own thread until close()."""
+    def start(self, realtime: bool = True) -> None:
+        """Run the loop in its own thread until close().
+
+        With `realtime`, the loop thread asks for real-time scheduling (SCHED_FIFO, where the OS allows it: root or
+        CAP_SYS_NICE) so other processes cannot delay its wake-ups; it sleeps most of each period, and the kernel's
+        real-time throttling keeps the rest of the machine responsive in any case. Refused -> normal scheduling.
+        """
         if self._thread is not None:
             raise RuntimeError("the control loop is already running")
         sys.setswitchinterval(min(sys.getswitchinterval(), SWITCH_INTERVAL_S))
-        self._thread = threading.Thread(target=self._run, name="diffdeck-loop", daemon=True)
+        self._thread = threading.Thread(target=self._run, args=(realtime,), name="diffdeck-loop", daemon=True)
         self._thread.start()
 
-    def _run(self) -> None:
+    def _run(self, realtime: bool) -> None:
+        self.scheduling = _raise_priority() if realtime else "normal scheduling"
         try:
             while not self._closing.is_set():
                 self._cycle(self._scheduler.wait())
