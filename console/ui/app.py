@@ -31,9 +31,10 @@ if TYPE_CHECKING:
     from console.profile import Profile
 
 RENDER_HZ_MAX = 30.0
-HEAVY_EVERY = 3
-"""The plot and the top view (the biggest panels) repaint on every 3rd tick: ~8 Hz scrolls smoothly enough and
-keeps the whole console within its CPU budget; their samples are still taken on every tick."""
+HEAVY_PERIOD_S = 0.125
+"""The plot and the top view (the biggest panels) repaint at most every 1/8 s of loop time: that scrolls smoothly
+enough and keeps the whole console within its CPU budget; their samples are still taken on every tick. Loop time,
+not ticks, decides, so a run on the virtual clock draws the same frames every time."""
 
 
 class DriveScreen(Screen[None]):
@@ -59,7 +60,8 @@ class DriveScreen(Screen[None]):
     def __init__(self, profile: Profile) -> None:
         super().__init__(id="drive")
         self.profile = profile
-        self._frames = 0
+        self._heavy_t_s = -math.inf
+        self.ready = False
 
     @property
     def console(self) -> DriveApp:
@@ -107,6 +109,7 @@ class DriveScreen(Screen[None]):
         self.plot = self.query_one(TracePlot)
         self.top_view = self.query_one(TopView)
         self.event_log = self.query_one(EventLog)
+        self.ready = True
         self.console.start_ticking()
 
     def show(self, snap: Snapshot, drive: DriveInput, now_s: float) -> None:
@@ -133,8 +136,9 @@ class DriveScreen(Screen[None]):
         )
         self.wheel_panel.show(snap)
         nan = math.nan
-        self._frames += 1
-        repaint = self._frames % HEAVY_EVERY == 0
+        repaint = snap.t_s - self._heavy_t_s >= HEAVY_PERIOD_S
+        if repaint:
+            self._heavy_t_s = snap.t_s
         self.plot.add(
             snap.t_s, s.v_req_mps, s.v_mps, nan if meas_v is None else meas_v,
             s.omega_req_radps, s.omega_radps, nan if meas_w is None else meas_w, repaint=repaint,
@@ -149,18 +153,19 @@ class DriveScreen(Screen[None]):
         if drive.arm_pending(now_s) and state in (SafetyState.DISARMED, SafetyState.STOPPED):
             return "press ENTER now to arm"
         if state is SafetyState.DISARMED:
-            return "no motion · arm: a then enter"
+            return "no motion · arm: a, enter"
         if state is SafetyState.STOPPED:
-            return "robot held at zero · re-arm: a then enter"
+            return "at rest · re-arm: a, enter"
         if state is SafetyState.STOPPING:
-            return "ramping down · x: faster stop"
+            return "ramping down · x: faster"
         hold = drive.hold_left_s(now_s)
         if drive.mode is DriveMode.HOLD:
-            return "HOLD: keep a key down" if hold is None else f"HOLD: request lapses in {hold:.1f} s"
-        return "LATCHED: request stays · space stops"
+            return "HOLD: keep a key down" if hold is None else f"HOLD: lapses in {hold:.1f} s"
+        return "LATCHED: request stays"
 
     def note(self, t_s: float, text: str) -> None:
-        self.event_log.add_note(t_s, text)
+        if self.ready:
+            self.event_log.add_note(t_s, text)
 
     # ---- actions: every one goes through the app, which alone talks to the loop
     def action_arm_open(self) -> None:
@@ -209,7 +214,8 @@ class DriveApp(App[int]):
     ]
 
     def __init__(self, loop: ControlLoop, profile: Profile, clock: Clock, settings: DriveSettings, *,
-                 real_link: bool, render_hz: float = 25.0, trace: KeyWireTrace | None = None) -> None:
+                 real_link: bool, render_hz: float = 25.0, trace: KeyWireTrace | None = None,
+                 on_ready: Callable[[], None] | None = None) -> None:
         super().__init__()
         self.loop = loop
         self.profile = profile
@@ -218,6 +224,7 @@ class DriveApp(App[int]):
         self.real_link = real_link
         self.render_hz = min(render_hz, RENDER_HZ_MAX)
         self.trace = trace
+        self.on_ready = on_ready
         self.confirmed = not real_link
         self.last_snapshot: Snapshot | None = None
 
@@ -231,7 +238,13 @@ class DriveApp(App[int]):
         return screen
 
     def start_ticking(self) -> None:
-        """Called once the drive screen is composed: first frame now, then the refresh timer."""
+        """Called once the drive screen is composed: first frame now, then the refresh timer.
+
+        `on_ready` (the verb passes `loop.start`) runs only now, so the loop thread does not compete with Textual's
+        start-up work (imports, CSS) for the interpreter and its first periods keep their deadlines.
+        """
+        if self.on_ready is not None:
+            self.on_ready()
         self.tick()
         self.set_interval(1.0 / self.render_hz, self.tick)
         if self.real_link:
@@ -255,7 +268,8 @@ class DriveApp(App[int]):
         if snap.state is not SafetyState.ARMED and self.drive.request != (0.0, 0.0):
             self.drive.clear()   # the loop stopped on its own (link, deadman, fault): nothing may stay requested
         self.last_snapshot = snap
-        self.drive_screen.show(snap, self.drive, now)
+        if self.drive_screen.ready:
+            self.drive_screen.show(snap, self.drive, now)
 
     def _note(self, text: str) -> None:
         t_s = self.last_snapshot.t_s if self.last_snapshot is not None else 0.0

@@ -121,16 +121,16 @@ class TitleBar(Panel):
         if self._shown is None:
             return Rows()
         name, url, mode, steps, t_s = self._shown
-        return (Rows().append(" diffdeck drive ", "bold reverse").append(f"  {name}  ·  link {url}  ·  ")
-                .append(f"{mode.upper()} mode", "bold").append(f"  ·  steps {steps}  ·  t {t_s:.1f} s"))
+        return (Rows().append(" diffdeck drive ", "bold reverse").append("  ").append(f"{mode.upper()} mode", "bold")
+                .append(f"  ·  link {url}  ·  t {t_s:.1f} s  ·  steps {steps}  ·  {name}"))
 
 
 class HintBar(Panel):
     """The keys that matter most, always in view; `?` opens the full list."""
 
     HINTS = (
-        ("space", "stop"), ("x", "fast stop"), ("a ⏎", "arm"), ("↑↓", "speed"), ("←→", "turn"),
-        ("1-9", "preset"), ("m", "hold/latch"), ("?", "help"), ("q", "quit"),
+        ("space", "stop"), ("x", "fast stop"), ("a ⏎", "arm"), ("?", "help"), ("↑↓", "speed"), ("←→", "turn"),
+        ("1-9", "preset"), ("m", "hold/latch"), ("q", "quit"),
     )
 
     def on_mount(self) -> None:
@@ -140,7 +140,7 @@ class HintBar(Panel):
         text = Rows()
         for key, what in self.HINTS:
             text.append(f" {key} ", "bold reverse")
-            text.append(f" {what}  ")
+            text.append(f" {what} ")
         return text
 
 
@@ -166,13 +166,14 @@ class LinkPanel(Panel):
         flag_names = [name for bit, name in ((1, "WATCHDOG"), (2, "FAULT"), (4, "STOPPED")) if flags & bit]
         rows = [
             ("url", url),
-            ("rate", f"{rate:.1f} Hz of {rate_set:g}"),
+            ("rate", f"{rate:.1f} of {rate_set:g} Hz"),
             ("telemetry", "none yet" if age is None else f"{age} ms ago"),
             ("round trip", "—" if rtt is None else f"{rtt:.1f} ms"),
-            ("errors", f"crc {crc} · long {overlong} · unknown {unknown}"),
+            ("errors", f"crc {crc} long {overlong} unk {unknown}"),
+            ("loop late", f"p99 {p99:.2f} max {pmax:.2f} ms"),
+            ("missed", f"{overruns} periods"),
             ("battery", ("—" if battery is None else f"{battery:.1f} V") + (f"  {' '.join(flag_names)}" if flag_names else "")),
-            ("frames", f"sent {sent} · telemetry {received}"),
-            ("loop", f"p99 {p99:.2f} ms · max {pmax:.2f} · missed {overruns}"),
+            ("frames", f"tx {sent} rx {received}"),
         ]
         text = Rows()
         for i, (name, value) in enumerate(rows):
@@ -208,12 +209,13 @@ class AxisGauge(Panel):
         d, width = self.digits, max(width, 10)
         lo, hi = self.scale_lo, self.scale_hi
         text = Rows()
-        text.append(f"{self.title} {self.unit}".ljust(14), "bold")
-        text.append("▼ req "), text.append(signed(req, d), self.style_of("gauge--req"))
+        wide = width >= 64
+        text.append(f"{self.title} {self.unit}".ljust(14 if wide else 11), "bold")
+        text.append("▼ req " if wide else "▼"), text.append(signed(req, d), self.style_of("gauge--req"))
         if abs(target - req) > 10 ** -d / 2:
-            text.append("  ▽ target "), text.append(signed(target, d), self.style_of("gauge--target"))
-        text.append("  █ out "), text.append(signed(out, d), self.style_of("gauge--out"))
-        text.append("  ▲ meas "), text.append(signed(meas, d), self.style_of("gauge--meas"))
+            text.append("  ▽ target " if wide else " ▽"), text.append(signed(target, d), self.style_of("gauge--target"))
+        text.append("  █ out " if wide else " █"), text.append(signed(out, d), self.style_of("gauge--out"))
+        text.append("  ▲ meas " if wide else " ▲"), text.append(signed(meas, d), self.style_of("gauge--meas"))
         text.append("\n")
 
         markers = [" "] * width
@@ -299,12 +301,17 @@ class WheelPanel(Panel):
                                                                           self.signs[1]))
         for i, (name, radps, wire, meas, sign) in enumerate(wheels):
             saturated = abs(radps) >= bound - 1e-6
-            text.append(f"{name} ", "bold")
-            text.append(f"cmd {signed(radps)} rad/s ", self.style_of("wheel--cmd"))
-            text.append(f"({wire:+.0f} {self.suffix})  ", self.style_of("wheel--cmd"))
-            meas_unit = None if meas is None else meas * self.per_radps * sign
-            text.append(f"meas {signed(meas)} rad/s ", self.style_of("wheel--meas"))
-            text.append("(—)" if meas_unit is None else f"({meas_unit:+.0f} {self.suffix})", self.style_of("wheel--meas"))
+            meas_unit = "—" if meas is None else f"{meas * self.per_radps * sign:+.0f}"
+            if width >= 64:
+                text.append(f"{name} ", "bold")
+                text.append(f"cmd {signed(radps)} rad/s ({wire:+.0f} {self.suffix})  ", self.style_of("wheel--cmd"))
+                text.append(f"meas {signed(meas)} rad/s ({meas_unit} {self.suffix})", self.style_of("wheel--meas"))
+            else:
+                text.append(f"{name[0].upper()} ", "bold")
+                text.append(f"▆{signed(radps, 1)} ", self.style_of("wheel--cmd"))
+                text.append(f"▲{signed(meas, 1)} rad/s ", self.style_of("wheel--meas"))
+                text.append(f"▆{wire:+.0f} ", self.style_of("wheel--cmd"))
+                text.append(f"▲{meas_unit} {self.suffix}", self.style_of("wheel--meas"))
             if saturated:
                 text.append("  AT BOUND", self.style_of("wheel--sat"))
             text.append("\n")
@@ -348,7 +355,7 @@ class LimitPanel(Panel):
         text = Rows()
         text.append("binds      ", "dim")
         if bound is None:
-            text.append("nothing (request passes)\n", self.style_of("limit--free"))
+            text.append("none (request passes)\n", self.style_of("limit--free"))
         else:
             text.append(f"{bound.upper()} LIMIT\n", self.style_of("limit--bound"))
         bar_width = max(width - 17, 4)
@@ -540,7 +547,7 @@ class TopView(Panel):
             canvas.polyline(tx, ty, self._TRAIL)
         arrow = self._ARROWS[round(heading / (math.pi / 4.0)) % 8]
         canvas.mark(int(cx // 2), int(cy // 4), arrow, self.style_of("top--robot"))
-        text.append(f"x {x0:+.2f} y {y0:+.2f} m · {math.degrees(heading):+.0f}° · grid {grid_m:g} m",
+        text.append(f"{x0:+.2f},{y0:+.2f} m {math.degrees(heading):.0f}° grid {grid_m:g} m",
                     self.style_of("top--label"))
         for line in canvas.to_rows({self._GRID: self.style_of("top--grid"), self._TRAIL: self.style_of("top--trail")}):
             text.newline()

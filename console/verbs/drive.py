@@ -119,8 +119,7 @@ def run(args: argparse.Namespace) -> int:
     clock = WallClock()
     loop = ControlLoop(profile, transport, clock, sim=sim, recorder=recorder, ui_timeout_s=UI_TIMEOUT_S,
                        url=profile.link.url)
-    app = DriveApp(loop, profile, clock, settings, real_link=sim is None, trace=trace)
-    loop.start()
+    app = DriveApp(loop, profile, clock, settings, real_link=sim is None, trace=trace, on_ready=loop.start)
     try:
         app.run()
     finally:
