@@ -612,14 +612,15 @@ class ControlLoop:
         else:
             frame = Heartbeat(seq)
         data = self._codec.encode(frame)
+        self._seq = next_seq(seq)
+        if not data:
+            return                  # a template heartbeat: nothing goes on the wire
         try:
-            if data:
-                self._transport.write(data)
+            self._transport.write(data)
         except LinkLost as error:
             self._lose_port(t_abs - self._t0, error)
             return
         self._sent_at[seq] = self.clock.now()
-        self._seq = next_seq(seq)
         self._frames_sent += 1
 
     def _note_bound(self, t: float, bound: Bound | None) -> None:

@@ -411,3 +411,19 @@ def test_cycle_stats_percentiles_over_the_window_and_exact_max() -> None:
     assert (p50, p99) == (numpy.percentile(window, 50), numpy.percentile(window, 99))
     assert work == pytest.approx(numpy.percentile(window / 2, 99))
     assert stats.error_max_s == 0.5 and stats.count == 5000
+
+
+def test_template_firmware_drives_end_to_end() -> None:
+    """wren-template.toml: duty-fraction commands in the firmware's own line format, telemetry read by its regex."""
+    rig = Rig(load_profile(ROOT / "profiles" / "wren-template.toml"))
+    rig.armed_at(0.5, 0.5)
+    left, right = rig.profile.geometry.to_wheels(0.5, 0.5)
+    rig.run(1.0)
+    snapshot = rig.loop.snapshot()
+    assert snapshot.left_meas_radps == pytest.approx(left, abs=0.3)
+    assert snapshot.right_meas_radps == pytest.approx(right, abs=0.3)
+    assert snapshot.left_cmd == pytest.approx(left / rig.profile.units.full_duty_radps)   # duty fraction on the wire
+    rig.loop.stop(StopKind.CONTROLLED)
+    rig.run_until(SafetyState.STOPPED)
+    rig.run(1.0)
+    assert rig.sim.plant.wheel_radps == pytest.approx((0.0, 0.0), abs=0.05)
