@@ -1,1 +1,4 @@
-"""Pure shaping core: operator requests in, limited body rates and wheel rates out. No clocks, threads, files or terminals."""
+"""Pure shaping core: operator requests in, limited body rates and wheel rates out.
+
+No clocks, threads, files or terminals here: the caller supplies every number and every time step.
+"""

@@ -125,28 +125,24 @@ class Ramp:
 
     def at(self, t: float) -> RampState:
         """State at time t after the plan's start; (target, 0, 0) from `duration` on."""
+        return RampState(*self.sample(t))
+
+    def sample(self, t: float) -> tuple[float, float, float]:
+        """`at(t)` as a plain (v, a, j) tuple, for the shaping cycle's hot path."""
         if t >= self.duration or not self._starts:
-            return RampState(self.target, 0.0, 0.0)
+            return self.target, 0.0, 0.0
         if t <= 0.0:
             v, a = self._states[0]
-            return RampState(v, a, self._jerks[0])
+            return v, a, self._jerks[0]
         index = bisect_right(self._starts, t) - 1
         dt = t - self._starts[index]
         v, a = self._states[index]
         jerk = self._jerks[index]
-        return RampState(v + a * dt + 0.5 * jerk * dt * dt, a + jerk * dt, jerk)
+        return v + a * dt + 0.5 * jerk * dt * dt, a + jerk * dt, jerk
 
-    def extent(self) -> tuple[float, float]:
-        """Lowest and highest v on the way (segment joints and wherever the acceleration passes zero)."""
-        low = high = self.target
-        ends = self._starts[1:] + [self.duration]
-        for start, end, (v, a), jerk in zip(self._starts, ends, self._states, self._jerks):
-            low, high = min(low, v), max(high, v)
-            if jerk != 0.0 and 0.0 < -a / jerk < end - start:
-                turn_at = -a / jerk
-                v_turn = v + a * turn_at + 0.5 * jerk * turn_at * turn_at
-                low, high = min(low, v_turn), max(high, v_turn)
-        return low, high
+    def joints(self) -> list[float]:
+        """Times at which the jerk changes: every segment's start, and the end."""
+        return [*self._starts, self.duration]
 
     def travel(self) -> float:
         """Integral of v over the plan (metres for a speed ramp, radians for a turn-rate ramp)."""

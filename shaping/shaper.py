@@ -15,6 +15,7 @@ there (at rest in acceleration, so on a straight line) on to the target itself.
 from __future__ import annotations
 
 import enum
+import itertools
 import math
 from dataclasses import dataclass
 
@@ -22,14 +23,11 @@ from shaping.envelope import Bound, Envelope, Limits
 from shaping.geometry import Geometry
 from shaping.ramp import AxisLimits, Ramp, plan_ramp, standstill, stretch_ramp
 
-_PATH_CHECKS = 24
-"""Points along a re-targeting plan at which it is checked against the envelope."""
+_SLACK = 1.0 + 1e-9
+"""Rounding allowance when a plan's way is checked against the envelope."""
 
-_REFINE_STEPS = 16
-"""Golden-section steps around the worst checked point (shrinks the bracket by 0.618**16, about 1/2200)."""
-
-_SHRINK_STEPS = 10
-"""Bisection steps for the largest part of a target whose way stays inside the envelope (1/1024 resolution)."""
+_SHRINK_STEPS = 6
+"""Bisection steps for the largest part of a target whose way stays inside the envelope (1/64 resolution)."""
 
 _AT_LIMIT = 0.999
 """Share of a budget from which a limit counts as binding (what the operator sees as 'which limit binds')."""
@@ -133,13 +131,12 @@ class _AxesMotion:
         self.turn = turn
         self.duration = max(speed.duration, turn.duration)
 
-    def box(self) -> tuple[tuple[float, float], tuple[float, float]]:
-        """Ranges of v and omega the way stays in."""
-        return self.speed.extent(), self.turn.extent()
+    def joints(self) -> list[float]:
+        """Times at which either axis changes its jerk, from 0 to the end."""
+        return sorted({0.0, *self.speed.joints(), *self.turn.joints()})
 
     def sample(self, t: float) -> _Sample:
-        s, w = self.speed.at(t), self.turn.at(t)
-        return s.v, s.a, s.j, w.v, w.a, w.j
+        return self.speed.sample(t) + self.turn.sample(t)
 
 
 class _LineMotion:
@@ -157,17 +154,12 @@ class _LineMotion:
     def sample(self, t: float) -> _Sample:
         if t >= self.duration:
             return self.target[0], 0.0, 0.0, self.target[1], 0.0, 0.0
-        s = self.sigma.at(t)
+        sigma, rate, change = self.sigma.sample(t)
         dv, dw = self.step
-        return self.start[0] + dv * s.v, dv * s.a, dv * s.j, self.start[1] + dw * s.v, dw * s.a, dw * s.j
+        return self.start[0] + dv * sigma, dv * rate, dv * change, self.start[1] + dw * sigma, dw * rate, dw * change
 
-    def box(self) -> tuple[tuple[float, float], tuple[float, float]]:
-        low, high = self.sigma.extent()
-        (v, w), (dv, dw) = self.start, self.step
-        return (
-            (min(v + dv * low, v + dv * high), max(v + dv * low, v + dv * high)),
-            (min(w + dw * low, w + dw * high), max(w + dw * low, w + dw * high)),
-        )
+    def joints(self) -> list[float]:
+        return sorted({0.0, *self.sigma.joints()})
 
 
 _REST = _AxesMotion(standstill(0.0), standstill(0.0))
@@ -256,37 +248,47 @@ class Shaper:
         return self._plan_axes(speed_state, turn_state, target, speed, turn)
 
     def _way_inside(self, motion: _AxesMotion | _LineMotion) -> bool:
-        """Whether the plan stays inside the envelope: evenly spaced points, then a golden-section search for the
-        largest envelope usage around the worst of them (usage is smooth between segment joints)."""
-        if motion.duration <= 0.0:
-            return True
-        # Cheap and sufficient: the box the way stays in is inside when its corners are (the linear limits bound
-        # a convex region; |v * omega| is largest at a corner).
-        (v_low, v_high), (w_low, w_high) = motion.box()
-        usage_of = self.envelope.usage
-        if max(usage_of(v, w)[0] for v in (v_low, v_high) for w in (w_low, w_high)) <= 1.0:
-            return True
+        """Whether the plan's way stays inside the envelope.
 
-        def usage(t: float) -> float:
-            v, _, _, w, _, _ = motion.sample(t)
-            return usage_of(v, w)[0]
-
-        step = motion.duration / _PATH_CHECKS
-        worst_index = max(range(_PATH_CHECKS + 1), key=lambda index: usage(index * step))
-        low, high = max(0.0, (worst_index - 1) * step), min(motion.duration, (worst_index + 1) * step)
-        for _ in range(_REFINE_STEPS):
-            third = (high - low) * 0.381966
-            if usage(low + third) > usage(high - third):
-                high = high - third
-            else:
-                low = low + third
-        return usage(0.5 * (low + high)) <= 1.0 + 1e-9 and usage(worst_index * step) <= 1.0 + 1e-9
+        Exact for the linear limits: within a constant-jerk piece every rate is a quadratic in time, so speed, turn
+        rate and each wheel's rate peak at a piece's end or at their vertex. The sideways product v * omega is
+        checked at the same points and mid-piece.
+        """
+        limits, geometry = self.envelope.limits, self.envelope.geometry
+        half_track = 0.5 * geometry.track_width_m
+        rim_speed = limits.wheel_rate_radps * geometry.wheel_radius_m * _SLACK
+        speed, reverse = limits.speed_mps * _SLACK, limits.reverse_speed_mps * _SLACK
+        turn = limits.turn_rate_radps * _SLACK
+        sideways = math.inf if limits.sideways_accel_mps2 is None else limits.sideways_accel_mps2 * _SLACK
+        joints = motion.joints()
+        for t0, t1 in itertools.pairwise(joints):
+            piece = t1 - t0
+            v, a, jerk, w, alpha, turn_jerk = motion.sample(t0)
+            times = [piece, 0.5 * piece]
+            for weight_v, weight_w in ((1.0, 0.0), (0.0, 1.0), (1.0, -half_track), (1.0, half_track)):
+                curve = weight_v * jerk + weight_w * turn_jerk
+                if curve != 0.0:
+                    vertex = -(weight_v * a + weight_w * alpha) / curve
+                    if 0.0 < vertex < piece:
+                        times.append(vertex)
+            for tau in times:
+                v_at = v + a * tau + 0.5 * jerk * tau * tau
+                w_at = w + alpha * tau + 0.5 * turn_jerk * tau * tau
+                if (
+                    v_at > speed
+                    or -v_at > reverse
+                    or abs(w_at) > turn
+                    or abs(v_at) + abs(w_at) * half_track > rim_speed
+                    or abs(v_at * w_at) > sideways
+                ):
+                    return False
+        return True
 
     def _plan_line(
         self, speed_state: tuple[float, float], turn_state: tuple[float, float], target: tuple[float, float],
         sigma_rate: float, speed: AxisLimits, turn: AxisLimits,
     ) -> _LineMotion:
-        (v, a), (w, alpha) = speed_state, turn_state
+        (v, _), (w, _) = speed_state, turn_state
         dv, dw = target[0] - v, target[1] - w
         accel_bounds, jerk_bounds = [], []
         if dv != 0.0:
@@ -352,7 +354,8 @@ class Shaper:
         bound = self._bound
         wheel_accel_use = 0.0
         if limits.wheel_accel_radps2 is not None:
-            wheel_accel_use = max(abs(x) for x in self.envelope.geometry.to_wheels(a, alpha)) / limits.wheel_accel_radps2
+            left_accel, right_accel = self.envelope.geometry.to_wheels(a, alpha)
+            wheel_accel_use = max(abs(left_accel), abs(right_accel)) / limits.wheel_accel_radps2
         jerk_use = max(abs(j) / speed.jerk, abs(turn_jerk) / turn.jerk)
         if bound is None or self._stop is not None:
             bound = None
