@@ -3,7 +3,7 @@
 Written so that firmware on a small microcontroller can speak it without a heap and a person can read it on a plain
 serial terminal; PROTOCOL.md at the project root is the specification for firmware authors. One frame per ASCII line:
 
-    @<version> <type> <seq> <fields...>*<crc>\\n      e.g.  @1 W 42 +12.500 -3.250*0DDB
+    @<version> <type> <seq> <fields...>*<crc>\\n      e.g.  @1 W 42 +12.500 -3.250*AB0A
 
 The codec knows no ports or clocks: `encode` turns a frame into one line, `Decoder.feed` turns any bytes into the
 frames they contain, never raises, keeps at most one line of pending bytes and counts what it had to throw away.

@@ -61,8 +61,10 @@ class SerialTransport:
 
 def open_url(url: str, baud: int) -> SerialTransport:
     """Open a device path or pyserial URL (socket://, rfc2217://, loop://, ...)."""
+    # pyserial's RFC 2217 client refuses a write timeout (NotImplementedError); its socket gives up after 5 s itself.
+    write_timeout = None if url.lower().startswith("rfc2217://") else WRITE_TIMEOUT_S
     try:
-        port = serial.serial_for_url(url, baudrate=baud, timeout=0, write_timeout=WRITE_TIMEOUT_S)
+        port = serial.serial_for_url(url, baudrate=baud, timeout=0, write_timeout=write_timeout)
     except ValueError as e:   # unknown URL scheme, bad parameters
         raise InputError("link", "url", url, " ".join(str(e).split())) from e
     except (serial.SerialException, OSError) as e:

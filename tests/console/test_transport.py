@@ -7,6 +7,8 @@ import socket
 import threading
 
 import pytest
+import serial
+import serial.rfc2217
 
 from console.errors import InputError, LinkLost
 from console.protocol import Decoder, Heartbeat, Telemetry, WheelCommand, encode
@@ -163,5 +165,63 @@ def test_write_that_cannot_drain_is_link_lost():
         with pytest.raises(LinkLost) as lost:
             link.write(b"x" * 2000)
         assert "write blocked" in str(lost.value) and "loop://" in str(lost.value)
+    finally:
+        link.close()
+
+
+@pytest.fixture
+def rfc2217_bridge():
+    """An RFC 2217 serial bridge on 127.0.0.1: pyserial's own server side (PortManager) in front of a loop:// port,
+    so whatever the client writes comes back. Yields (port, stop): setting `stop` makes the bridge hang up."""
+    server = socket.create_server(("127.0.0.1", 0))
+    stop = threading.Event()
+
+    def serve() -> None:
+        conn, _ = server.accept()
+        conn.settimeout(0.01)
+        loop = serial.serial_for_url("loop://", timeout=0)
+
+        class Sender:
+            write = conn.sendall
+
+        manager = serial.rfc2217.PortManager(loop, Sender())
+        while not stop.is_set():
+            try:
+                data = conn.recv(1024)
+                if not data:
+                    break
+                loop.write(b"".join(manager.filter(data)))
+            except socket.timeout:
+                pass
+            echoed = loop.read(1024)
+            if echoed:
+                conn.sendall(b"".join(manager.escape(echoed)))
+        conn.close()
+
+    thread = threading.Thread(target=serve, daemon=True)
+    thread.start()
+    yield server.getsockname()[1], stop
+    stop.set()
+    thread.join(2)
+    server.close()
+
+
+@pytest.mark.filterwarnings("ignore:set(Daemon|Name)\\(\\) is deprecated:DeprecationWarning")   # inside pyserial 3.5
+def test_rfc2217_url_round_trip_and_hang_up(rfc2217_bridge):
+    port, stop = rfc2217_bridge
+    url = f"rfc2217://127.0.0.1:{port}"
+    link = open_url(url, 115200)
+    try:
+        frames = [Heartbeat(5), WheelCommand(6, 1.5, -1.5)]
+        for frame in frames:
+            link.write(encode(frame))
+        assert Decoder().feed(read_until(link, sum(len(encode(f)) for f in frames))) == frames
+        stop.set()             # the bridge hangs up
+        with pytest.raises(LinkLost) as lost:
+            for _ in range(2000):
+                link.read()
+                link.write(encode(Heartbeat(7)))
+                threading.Event().wait(0.001)
+        assert str(lost.value).startswith(f"link lost: {url}: ") and "\n" not in str(lost.value)
     finally:
         link.close()
