@@ -168,7 +168,7 @@ def _diagnose(m: tuple, p: tuple | None, units: dict[str, object]) -> list[Findi
                                     f"'{channel} forwards' pulse set invert_{side} and invert_{side}_encoder; if it "
                                     f"turned forwards, only invert_{side}_encoder",
                                     {**_flip(units, f"invert_{side}"), **_flip(units, f"invert_{side}_encoder")}))
-        magnitude = abs(p[c][w]) if p is not None else abs(meas_value)
+        magnitude = abs(meas_value)          # the steady measured rate: cleaner than the integrated pose
         if abs(magnitude - 1.0) > SCALE_TOLERANCE:
             key = f"trim_{channel}"
             trim = float(units.get(key, 1.0)) / magnitude

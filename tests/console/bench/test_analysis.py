@@ -107,7 +107,7 @@ def test_savitzky_golay_derivatives_of_a_sine() -> None:
 
 
 def test_suggested_acceleration_keeps_the_stated_ramp_tracking_error() -> None:
-    fit = analysis.FopdtFit(gain=1.0, tau_s=0.07, dead_time_s=0.02, r2=1.0, nrmse=0.0, samples=0)
+    fit = analysis.FopdtFit(gain=1.0, tau_s=0.07, dead_time_s=0.02, deadband=0.0, r2=1.0, nrmse=0.0, samples=0)
     radius, track, error = 0.06, 0.3, 0.04
     limits = analysis.suggest_limits({"left": fit, "right": fit}, radius, track, error)
     t = np.arange(0.0, 3.0, 0.0005)

@@ -1,0 +1,113 @@
+"""Bench runs on the simulated robot: identification, the polarity check and interrupted runs.
+
+The outside reference is the simulated plant's own configuration (a first-order motor with dead time and a deadband,
+checked against scipy's ODE solver in tests/console/sim/test_plant.py): the report must find the time constant the
+[sim] section sets, and name the wiring fault the [sim] section injects.
+"""
+
+from __future__ import annotations
+
+import json
+from pathlib import Path
+
+import pytest
+
+from console.bench.program import builtin
+from console.bench.recording import read_recording
+from console.bench.report import FIGURES, analyze, write_report
+from console.bench.run import BenchRun
+from console.bench.tomledit import edit_toml
+from console.loop import SafetyState, StopCause
+from console.profile import Profile, load_profile
+
+ROOT = Path(__file__).resolve().parents[3]
+WREN = ROOT / "profiles" / "wren.toml"
+
+
+def _profile(tmp_path: Path, changes: dict[tuple[str, str], object], name: str = "robot.toml") -> Profile:
+    path = tmp_path / name
+    path.write_text(edit_toml(WREN.read_text(encoding="utf-8"), changes), encoding="utf-8")
+    return load_profile(path)
+
+
+@pytest.mark.parametrize("tau", [0.06, 0.15])
+def test_report_fit_recovers_the_simulated_motor_time_constant(tmp_path: Path, tau: float) -> None:
+    profile = _profile(tmp_path, {("sim", "motor_time_constant_s"): tau})
+    result = BenchRun(profile, builtin("step"), out_dir=tmp_path).run_to_end()
+    assert result.completed and result.cause is StopCause.PROGRAM_END
+    report = analyze(read_recording(result.recording))
+    for wheel in ("left", "right"):
+        fit = report.fits[wheel]
+        assert fit.tau_s == pytest.approx(tau, rel=0.15), wheel
+        assert fit.gain == pytest.approx(1.0, rel=0.03)
+        assert fit.r2 > 0.99
+    # the step segments: the response reaches the request (the sim has unit gain) and settles
+    speed_up = report.segments[0]
+    assert speed_up.step.steady_state_error == pytest.approx(0.0, abs=0.01)
+    assert speed_up.step.settling_time_s is not None
+    assert speed_up.peak_accel_cmd == pytest.approx(profile.limits.accel_mps2, rel=0.03)
+    assert report.limits is not None and report.limits.accel_mps2 > 0
+
+
+def test_report_writes_figures_summary_and_json(tmp_path: Path) -> None:
+    result = BenchRun(load_profile(WREN), builtin("square"), out_dir=tmp_path).run_to_end()
+    rec = read_recording(result.recording)
+    report = analyze(rec)
+    paths = write_report(rec, report, tmp_path / "out")
+    names = sorted(p.name for p in paths)
+    assert names == sorted([*FIGURES, "summary.md", "report.json"])
+    for figure in FIGURES:
+        assert (tmp_path / "out" / figure).read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
+        assert f"]({figure})" in (tmp_path / "out" / "summary.md").read_text()
+    data = json.loads((tmp_path / "out" / "report.json").read_text())
+    assert data["segments"][0]["edges"] == 8        # 16 s of a 4 s period: two edges per period
+    assert "[limits]" in data["limits_snippet"]
+
+
+FAULTS = [
+    ({}, {"ok"}, {}),
+    ({"swap_motors": True}, {"swapped"}, {"swap_motors": True}),
+    ({"invert_left_motor": True}, {"inverted motor"}, {"invert_left": True, "invert_left_encoder": True}),
+    ({"invert_right_motor": True}, {"inverted motor"}, {"invert_right": True, "invert_right_encoder": True}),
+    ({"invert_left_encoder": True}, {"reversed encoder"}, {"invert_left_encoder": True}),
+    ({"invert_right_encoder": True}, {"reversed encoder"}, {"invert_right_encoder": True}),
+    ({"invert_right_motor": True, "invert_right_encoder": True}, {"mirrored side"}, {"invert_right": True}),
+    ({"dead_left": True}, {"dead"}, {}),
+    ({"dead_right": True}, {"dead"}, {}),
+    ({"unit_scale": 1.25}, {"scale"}, {"trim_left": 0.8, "trim_right": 0.8}),
+]
+
+
+@pytest.mark.parametrize(("fault", "kinds", "fix"), FAULTS, ids=[str(f[0]) or "none" for f in FAULTS])
+def test_polarity_check_names_each_wiring_fault_and_its_fix(tmp_path: Path, fault: dict, kinds: set,
+                                                            fix: dict) -> None:
+    profile = _profile(tmp_path, {("sim", key): value for key, value in fault.items()})
+    result = BenchRun(profile, builtin("polarity"), out_dir=tmp_path).run_to_end()
+    polarity = analyze(read_recording(result.recording)).polarity
+    assert {f.kind for f in polarity.findings} == kinds
+    assert polarity.fix == pytest.approx(fix, rel=0.005)
+    if not fix:
+        return
+    # the proposed profile change really fixes it: the check on the corrected profile finds nothing
+    fixed = _profile(tmp_path, {**{("sim", k): v for k, v in fault.items()},
+                                **{("units", k): v for k, v in fix.items()}}, "fixed.toml")
+    again = BenchRun(fixed, builtin("polarity"), out_dir=tmp_path / "fixed").run_to_end()
+    assert [f.kind for f in analyze(read_recording(again.recording)).polarity.findings] == ["ok"]
+
+
+def test_a_stopped_run_ends_under_control_and_keeps_its_recording(tmp_path: Path) -> None:
+    run = BenchRun(load_profile(WREN), builtin("ramp"), out_dir=tmp_path)
+    while run.progress.t_s < 3.0:            # mid ramp, moving
+        assert run.step(10)
+    assert abs(run.snapshot().shaped.v_mps) > 0.2
+    run.stop()
+    while run.step(10):
+        pass
+    assert run.snapshot().state is SafetyState.STOPPED
+    result = run.close()
+    assert not result.completed and result.cause is StopCause.OPERATOR
+    rec = read_recording(result.recording)
+    assert rec.data["v_mps"][-1] == 0.0
+    assert len(rec.segments) < 4             # the segments after the stop are not claimed
+    side = json.loads(result.bench_sidecar.read_text())
+    assert side["completed"] is False and side["cause"] == "operator"
