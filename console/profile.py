@@ -135,8 +135,11 @@ class _Table:
     def number(self, key: str, unit: str, default: object = MISSING, *, low: float = 0.0, high: float = math.inf,
                low_inclusive: bool = False) -> float:
         """A finite int or float (never a bool) in (low, high] or [low, high]."""
-        opening = "from" if low_inclusive else "greater than"
-        allowed = f"a number {opening} {low:g}" + (f" up to {high:g}" if high < math.inf else "") + f" ({unit})"
+        if high < math.inf:
+            span = f"from {low:g} to {high:g}" if low_inclusive else f"> {low:g} and <= {high:g}"
+        else:
+            span = f">= {low:g}" if low_inclusive else f"> {low:g}"
+        allowed = f"a number {span} ({unit})"
         value = self.raw(key, default, allowed)
         if isinstance(value, bool) or not isinstance(value, int | float):
             raise self.error(key, value, allowed)
@@ -153,7 +156,7 @@ class _Table:
         return self.number(key, unit + "; optional")
 
     def integer(self, key: str, default: object = MISSING, *, low: int = 1, high: int | None = None) -> int:
-        allowed = f"a whole number from {low}" + (f" to {high}" if high is not None else "")
+        allowed = f"a whole number from {low} to {high}" if high is not None else f"a whole number >= {low}"
         value = self.raw(key, default, allowed)
         if isinstance(value, bool) or not isinstance(value, int) or value < low or (high is not None and value > high):
             raise self.error(key, value, allowed)

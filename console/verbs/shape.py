@@ -65,7 +65,7 @@ def read_requests(path: str | Path) -> Requests:
     """Read and check a request trace; InputError names the file, line, field, value and what is allowed."""
     file = str(path)
     try:
-        handle = open(path, newline="", encoding="utf-8")
+        handle = open(path, newline="", encoding="utf-8-sig")  # a spreadsheet may lead with a BOM
     except OSError as error:
         raise InputError(file, "file", file, f"cannot be read ({error.strerror})") from None
     times: list[float] = []
