@@ -16,6 +16,7 @@ import enum
 import re
 from collections.abc import Callable
 from dataclasses import dataclass
+from typing import Any
 
 PROTOCOL_VERSION = 1
 MAX_LINE = 96            # bytes of one frame from "@" through "\n" inclusive (an optional "\r" counts)
@@ -101,10 +102,10 @@ def _seq(seq: int) -> int:
     return seq
 
 
-def _rate(name: str, value: float) -> str:
+def _rate(name: str, value: float) -> float:
     if not (isinstance(value, (int, float)) and -RATE_MAX <= value <= RATE_MAX):     # also rejects NaN and None
         raise ValueError(f"{name} = {value!r}: a finite rate within +-{RATE_MAX:.0f}")
-    return f"{value:+.3f}"
+    return value
 
 
 def _ticks(name: str, value: int) -> int:
@@ -113,34 +114,49 @@ def _ticks(name: str, value: int) -> int:
     return value
 
 
-def _body(frame: Frame) -> str:
-    kind = type(frame)
-    if kind is WheelCommand:
-        return f"{PROTOCOL_VERSION} W {_seq(frame.seq)} {_rate('left', frame.left)} {_rate('right', frame.right)}"
-    if kind is Telemetry:
-        battery = 0.0 if frame.battery_v is None else frame.battery_v
-        if not (isinstance(battery, (int, float)) and 0.0 <= battery <= BATTERY_MAX_V):
-            raise ValueError(f"battery_v = {battery!r}: 0..{BATTERY_MAX_V} V (0 = not measured)")
-        if not (isinstance(frame.flags, int) and 0 <= frame.flags <= FLAGS_MAX):
-            raise ValueError(f"flags = {frame.flags!r}: 0..0x{FLAGS_MAX:04X}")
-        return (
-            f"{PROTOCOL_VERSION} T {_seq(frame.seq)} {_seq(frame.echo_seq)} {_rate('left', frame.left)} "
-            f"{_rate('right', frame.right)} {_ticks('left_ticks', frame.left_ticks)} "
-            f"{_ticks('right_ticks', frame.right_ticks)} {battery:.2f} {int(frame.flags):04X}"
-        )
-    if kind is StopCommand:
-        if frame.category not in STOP_CATEGORIES or type(frame.category) is not int:
-            raise ValueError(f"category = {frame.category!r}: 0, 1 or 2")
-        return f"{PROTOCOL_VERSION} S {_seq(frame.seq)} {frame.category}"
-    if kind is Heartbeat:
-        return f"{PROTOCOL_VERSION} H {_seq(frame.seq)}"
-    raise TypeError(f"not a diffdeck frame: {frame!r}")
+# bodies as bytes %-formats (twice as fast as str formatting plus encoding); version and type fixed in each
+_W = b"%d W %%d %%+.3f %%+.3f" % PROTOCOL_VERSION
+_T = b"%d T %%d %%d %%+.3f %%+.3f %%d %%d %%.2f %%04X" % PROTOCOL_VERSION
+_S = b"%d S %%d %%d" % PROTOCOL_VERSION
+_H = b"%d H %%d" % PROTOCOL_VERSION
+
+
+def _wheel_body(f: WheelCommand) -> bytes:
+    return _W % (_seq(f.seq), _rate("left", f.left), _rate("right", f.right))
+
+
+def _telemetry_body(f: Telemetry) -> bytes:
+    battery = 0.0 if f.battery_v is None else f.battery_v
+    if not (isinstance(battery, (int, float)) and 0.0 <= battery <= BATTERY_MAX_V):
+        raise ValueError(f"battery_v = {battery!r}: 0..{BATTERY_MAX_V} V (0 or None = not measured)")
+    if not (isinstance(f.flags, int) and 0 <= f.flags <= FLAGS_MAX):
+        raise ValueError(f"flags = {f.flags!r}: 0..0x{FLAGS_MAX:04X}")
+    return _T % (_seq(f.seq), _seq(f.echo_seq), _rate("left", f.left), _rate("right", f.right),
+                 _ticks("left_ticks", f.left_ticks), _ticks("right_ticks", f.right_ticks), battery, f.flags)
+
+
+def _stop_body(f: StopCommand) -> bytes:
+    if type(f.category) is not int or f.category not in STOP_CATEGORIES:
+        raise ValueError(f"category = {f.category!r}: 0, 1 or 2")
+    return _S % (_seq(f.seq), f.category)
+
+
+def _heartbeat_body(f: Heartbeat) -> bytes:
+    return _H % _seq(f.seq)
+
+
+_BODIES: dict[type, Callable[[Any], bytes]] = {
+    WheelCommand: _wheel_body, Telemetry: _telemetry_body, StopCommand: _stop_body, Heartbeat: _heartbeat_body,
+}
 
 
 def encode(frame: Frame) -> bytes:
     """One ASCII line for `frame`, CRC trailer included, ending in b"\\n"; ValueError if a field cannot be sent."""
-    body = _body(frame).encode("ascii")
-    return b"@%s*%04X\n" % (body, binascii.crc_hqx(body, CRC_INIT))
+    body_of = _BODIES.get(type(frame))
+    if body_of is None:
+        raise TypeError(f"not a diffdeck frame: {frame!r}")
+    body = body_of(frame)
+    return b"@" + body + b"*%04X\n" % binascii.crc_hqx(body, CRC_INIT)
 
 
 # Grammar (see PROTOCOL.md). Each frame type of this version has one full-line expression, so the usual case costs
