@@ -310,6 +310,7 @@ class ControlLoop:
         self._lock = threading.Lock()
         # caller -> loop cells (under _lock)
         self._req = (0.0, 0.0)
+        self._wheels_req: tuple[float, float] | None = None
         self._arm_pending = False
         self._stop_pending: tuple[StopKind, StopCause] | None = None
         self._operator_beats = 0
@@ -319,6 +320,7 @@ class ControlLoop:
         self._cause: StopCause | None = None
         self._kind: StopKind | None = None
         self._seq = 0
+        self._bypass: tuple[float, float] | None = None   # wheel rates sent around the shaper, rad/s
         self._sent_at: list[float | None] = [None] * SEQ_MODULUS
         self._arm_seq: int | None = None
         self._arm_t = 0.0
@@ -358,11 +360,22 @@ class ControlLoop:
         with self._lock:
             self._arm_pending = True
             self._req = (0.0, 0.0)
+            self._wheels_req = None
 
     def request(self, v_mps: float, omega_radps: float) -> None:
         """The operator's latest (v, omega); moves the robot only while armed. Non-finite values are rejected."""
         with self._lock:
             self._req = (v_mps, omega_radps)
+            self._wheels_req = None
+
+    def request_wheels(self, left_radps: float, right_radps: float) -> None:
+        """Wheel rates sent around the shaper while armed (bench step tests), clamped to +-limits.wheel_rate_radps.
+
+        The next `request()` hands back to the shaper: the wheels first ramp to zero at the wheel deceleration, then
+        the shaper starts from rest. Stops ramp the wheels down the same way (immediate: zero at once).
+        """
+        with self._lock:
+            self._wheels_req = (left_radps, right_radps)
 
     def stop(self, kind: StopKind, cause: StopCause = StopCause.OPERATOR) -> None:
         """Stop (and disarm); a harsher stop asked for before the loop took a softer one replaces it."""
@@ -459,6 +472,7 @@ class ControlLoop:
             self._on_cycle(t)
         with self._lock:
             req = self._req
+            wheels = self._wheels_req
             arm, self._arm_pending = self._arm_pending, False
             stop, self._stop_pending = self._stop_pending, None
             beats = (self._operator_beats, self._ui_beats)
@@ -472,11 +486,14 @@ class ControlLoop:
         self._check_heartbeats(t)
         if arm:
             self._arm(t)
-            req = (0.0, 0.0)        # the arming cycle sends W(0, 0), the robot's release frame
+            req, wheels = (0.0, 0.0), None   # the arming cycle sends W(0, 0), the robot's release frame
         if stop is not None:
             self._begin_stop(t, *stop)
         moving = self._state in (SafetyState.ARMED, SafetyState.STOPPING)
-        shaped = self._shaper.step(tick.dt_s, *req) if moving else self._shaper.step(tick.dt_s, 0.0, 0.0)
+        if moving and (wheels is not None or self._bypass is not None):
+            shaped = self._around_the_shaper(t, tick.dt_s, wheels)
+        else:
+            shaped = self._shaper.step(tick.dt_s, *req) if moving else self._shaper.step(tick.dt_s, 0.0, 0.0)
         if self._state is SafetyState.STOPPING and shaped.settled and shaped.v_mps == 0.0 \
                 and shaped.omega_radps == 0.0:
             self._state = SafetyState.STOPPED
@@ -491,6 +508,41 @@ class ControlLoop:
         if self._recorder is not None:
             self._record(snapshot)
         self._stats.add(tick.error_s, self.clock.now() - t_abs)
+
+    def _around_the_shaper(self, t: float, dt: float, wheels: tuple[float, float] | None) -> Shaped:
+        """One cycle of wheel rates sent as requested (bench tests); ramps to zero on a stop or on hand-back."""
+        limits, geometry = self.profile.limits, self.profile.geometry
+        if self._bypass is None:
+            shaped = self._snapshot.shaped          # from where the shaper left the wheels
+            self._bypass = (shaped.left_radps, shaped.right_radps)
+            self._shaper.reset()     # the shaper stays at rest while bypassed; it starts from rest on hand-back
+            self._log(t, "around the shaper: wheel rates as requested", "safety")
+        left, right = self._bypass
+        stopping = self._state is SafetyState.STOPPING
+        if stopping and self._kind is StopKind.IMMEDIATE:
+            left = right = 0.0
+        elif stopping or wheels is None:
+            decel = limits.stop_decel_mps2 if stopping and self._kind is StopKind.FAST else limits.decel_mps2
+            rate = decel / geometry.wheel_radius_m
+            if limits.wheel_accel_radps2 is not None:
+                rate = min(rate, limits.wheel_accel_radps2)
+            step = rate * dt
+            left = math.copysign(max(abs(left) - step, 0.0), left)
+            right = math.copysign(max(abs(right) - step, 0.0), right)
+        elif all(math.isfinite(w) for w in wheels):
+            top = limits.wheel_rate_radps
+            left, right = (min(max(w, -top), top) for w in wheels)
+        at_rest = left == 0.0 and right == 0.0
+        self._bypass = (left, right)
+        if at_rest and (stopping or wheels is None):
+            self._bypass = None
+            if not stopping:
+                self._log(t, "back through the shaper", "safety")
+        v, omega = geometry.to_body(left, right)
+        v_req, omega_req = geometry.to_body(*wheels) if wheels is not None else (0.0, 0.0)
+        return Shaped(v_req, omega_req, v, omega, v, omega, 0.0, 0.0, 0.0, 0.0, left, right, None, 0.0, 0.0,
+                      wheels is not None and not all(math.isfinite(w) for w in wheels), self._kind if stopping
+                      else None, stopping and self._kind is StopKind.IMMEDIATE, at_rest)
 
     def _receive(self, t: float) -> None:
         if self._port_gone:

@@ -427,3 +427,38 @@ def test_template_firmware_drives_end_to_end() -> None:
     rig.run_until(SafetyState.STOPPED)
     rig.run(1.0)
     assert rig.sim.plant.wheel_radps == pytest.approx((0.0, 0.0), abs=0.05)
+
+
+def test_wheel_rates_around_the_shaper_then_hand_back_and_stops_ramp_down() -> None:
+    rig = Rig()
+    rig.run(0.3)
+    rig.loop.arm()
+    rig.run(0.02)
+    n = len(rig.tap.sent)
+    rig.loop.request_wheels(8.0, -3.0)                   # a step, as a bench program asks for
+    rig.run(0.01)
+    step = rig.frames_since(n)[0]
+    units = rig.profile.units
+    assert (step.left, step.right) == pytest.approx(units.to_motor(8.0, -3.0))   # at once: no ramp
+    rig.loop.request_wheels(99.0, 0.0)
+    rig.run(1.0)
+    assert rig.loop.snapshot().shaped.left_radps == rig.profile.limits.wheel_rate_radps   # clamped
+    assert rig.sim.plant.wheel_radps[0] == pytest.approx(rig.profile.limits.wheel_rate_radps, rel=0.02)
+    rig.loop.request(0.0, 0.0)                            # hand back: ramp to zero first, then the shaper
+    k = len(rig.trace)
+    rig.run(2.0)
+    lefts = numpy.array([s.shaped.left_radps for s in rig.trace[k - 1:]])
+    limits, geometry = rig.profile.limits, rig.profile.geometry
+    ramp = min(limits.decel_mps2 / geometry.wheel_radius_m, limits.wheel_accel_radps2)
+    assert -numpy.diff(lefts).min() >= -1e-12 and numpy.diff(lefts).min() == pytest.approx(-ramp / rig.rate)
+    assert lefts[-1] == 0.0 and "back through the shaper" in [e.text for e in rig.loop.snapshot().events]
+    rig.loop.request(0.5, 0.0)                            # the shaper starts from rest
+    rig.run(0.02)
+    assert 0.0 < rig.loop.snapshot().shaped.v_mps < 0.01
+    rig.loop.request_wheels(10.0, 10.0)
+    rig.run(0.5)
+    rig.loop.stop(StopKind.FAST)
+    rig.run_until(SafetyState.STOPPED)
+    stops = [f.category for f in rig.tap.sent if type(f) is StopCommand]
+    assert stops and set(stops) == {CATEGORY[StopKind.FAST]}
+    assert rig.loop.snapshot().shaped.v_mps == 0.0
