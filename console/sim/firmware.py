@@ -30,7 +30,7 @@ import math
 from typing import TYPE_CHECKING
 
 from console.errors import InputError, LinkLost
-from console.protocol import SEQ_MODULUS, Codec, Flags, Frame, Heartbeat, StopCommand, Telemetry, WheelCommand
+from console.protocol import RATE_MAX, SEQ_MODULUS, Codec, Flags, Frame, Heartbeat, StopCommand, Telemetry, WheelCommand
 from console.sim.plant import Plant
 from console.templates import TemplateRobotCodec
 from console.transport import Transport, memory_pair
@@ -242,8 +242,8 @@ class SimRobot:
         frame = Telemetry(
             seq=self._tx_seq,
             echo_seq=self._echo_seq,
-            left=left,
-            right=right,
+            left=max(-RATE_MAX, min(RATE_MAX, left)),    # what the wire can carry, as firmware would saturate
+            right=max(-RATE_MAX, min(RATE_MAX, right)),
             left_ticks=_wrap_int32(state.left_ticks),
             right_ticks=_wrap_int32(state.right_ticks),
             battery_v=self._battery_v(),

@@ -16,9 +16,10 @@ import pytest
 
 from console.errors import InputError
 from console.profile import Profile, load_profile
-from console.protocol import Decoder, Flags, Heartbeat, StopCommand, Telemetry, WheelCommand, encode
+from console.protocol import RATE_MAX, Decoder, Flags, Heartbeat, StopCommand, Telemetry, WheelCommand, encode
 from console.sim.firmware import SimRobot
 from console.templates import TemplateCodec
+from shaping.units import WheelUnit, WheelUnits
 
 ROOT = Path(__file__).resolve().parents[3]
 WREN = ROOT / "profiles" / "wren.toml"
@@ -325,3 +326,16 @@ def test_a_template_the_simulated_robot_cannot_speak_is_a_profile_error() -> Non
     with pytest.raises(InputError) as raised:
         SimRobot(bad)
     assert str(TEMPLATE) in str(raised.value) and "link.template" in str(raised.value)
+
+
+def test_telemetry_saturates_at_what_the_wire_can_carry() -> None:
+    """A fine encoder behind a big gearbox, in ticks/s, near the protocol's largest number, with a firmware that
+    misreads the unit (unit_scale 1.5): the measured rate would not fit the wire; the firmware saturates it instead of
+    failing (PROTOCOL: |rate| <= RATE_MAX)."""
+    units = WheelUnits(WheelUnit.TICKS_PER_S, ticks_per_rev=100_000.0, gear_ratio=100.0)
+    profile = dataclasses.replace(_profile(unit_scale=1.5), units=units)
+    console = _released(profile)
+    console.run(1.0, WheelCommand, 0.9 * RATE_MAX, 0.5 * RATE_MAX)
+    last = console.telemetry[-1]
+    assert last.left == RATE_MAX                                 # 1.35 x RATE_MAX measured
+    assert last.right == pytest.approx(0.75 * RATE_MAX, rel=1e-6)
