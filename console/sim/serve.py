@@ -21,7 +21,6 @@ import termios
 import threading
 import time
 import tty
-from collections.abc import Callable
 from types import FrameType
 
 from console.errors import InputError
@@ -158,8 +157,9 @@ class TcpEnd:
         self._server.close()
 
 
-def run_wall_clock(robot: SimRobot, stop: threading.Event, clock: Callable[[], float] = time.monotonic) -> None:
+def run_wall_clock(robot: SimRobot, stop: threading.Event) -> None:
     """Advance the robot with the wall clock until `stop` is set (deadline scheduling, no drift, no bunching)."""
+    clock = time.monotonic
     t0 = clock()
     offset = 0.0          # sim time skipped after long stalls
     k = 0
@@ -179,7 +179,7 @@ def run_wall_clock(robot: SimRobot, stop: threading.Event, clock: Callable[[], f
 
 
 def serve(profile: Profile, end: PtyEnd | TcpEnd, first_line: str) -> int:
-    """Print `first_line` (flushed) and serve until SIGINT or SIGTERM; exit code 0."""
+    """Print `first_line` (flushed) and serve until SIGINT or SIGTERM; exit code 0. Closes `end` in any case."""
     stop = threading.Event()
 
     def on_signal(_signum: int, _frame: FrameType | None) -> None:
@@ -187,9 +187,10 @@ def serve(profile: Profile, end: PtyEnd | TcpEnd, first_line: str) -> int:
 
     previous = {sig: signal.signal(sig, on_signal) for sig in (signal.SIGINT, signal.SIGTERM)}
     try:
+        robot = SimRobot(profile, end)   # a profile the robot cannot speak fails here, before anything is printed
         print(first_line, flush=True)
         print(f"diffdeck sim: {profile.name} on {end.url}; Ctrl-C or SIGTERM stops it", file=sys.stderr, flush=True)
-        run_wall_clock(SimRobot(profile, end), stop)
+        run_wall_clock(robot, stop)
     finally:
         for sig, handler in previous.items():
             signal.signal(sig, handler)

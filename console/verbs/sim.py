@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import argparse
 
+from console.errors import InputError
 from console.profile import load_profile
 from console.sim.serve import PtyEnd, TcpEnd, parse_loopback, serve
 
@@ -32,5 +33,8 @@ def run(args: argparse.Namespace) -> int:
     if address is None:
         end = PtyEnd()
         return serve(profile, end, end.path)
-    tcp = TcpEnd(*address)
+    try:
+        tcp = TcpEnd(*address)
+    except OSError as error:          # port taken, address not on this machine, no permission
+        raise InputError("sim", "--tcp", args.tcp, f"cannot listen there: {error.strerror or error}") from None
     return serve(profile, tcp, tcp.url)

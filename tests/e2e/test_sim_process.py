@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import os
 import signal
+import socket
 import subprocess
 import sys
 import time
@@ -150,3 +151,15 @@ def test_tcp_refuses_anything_but_a_loopback_address(where: str) -> None:
     lines = result.stderr.strip().splitlines()
     assert len(lines) == 1 and "--tcp" in lines[0] and where in lines[0] and "loopback" in lines[0]
 
+
+
+def test_tcp_port_in_use_is_one_line_and_exit_2() -> None:
+    with socket.socket() as taken:
+        taken.bind(("127.0.0.1", 0))
+        taken.listen(1)
+        where = f"127.0.0.1:{taken.getsockname()[1]}"
+        result = subprocess.run([sys.executable, "-m", "console", "sim", str(WREN.path), "--tcp", where], cwd=ROOT,
+                                capture_output=True, text=True, timeout=30)
+    assert result.returncode == 2 and result.stdout == ""
+    lines = result.stderr.strip().splitlines()
+    assert len(lines) == 1 and where in lines[0] and "cannot listen" in lines[0]
