@@ -101,7 +101,7 @@ class SimRobot:
         self._right_cmd = 0.0
         self._flags = _STOPPED
         self._running = False          # released: follows W frames, watchdog armed
-        self._stop_category: int | None = None   # ramp-down in progress or held after a stop (1 or 2)
+        self._stop_category: int | None = None   # category (1 or 2) of the ramp-down in progress
         self._last_command_s = 0.0
         self._echo_seq = 0
         self._tx_seq = 0
@@ -223,8 +223,9 @@ class SimRobot:
         step = self._ramp_radps2 * h
         self._left_cmd = math.copysign(max(abs(self._left_cmd) - step, 0.0), self._left_cmd)
         self._right_cmd = math.copysign(max(abs(self._right_cmd) - step, 0.0), self._right_cmd)
-        if self._left_cmd == 0.0 and self._right_cmd == 0.0 and self._stop_category == 1:
-            self._flags |= _POWER_OFF
+        if self._left_cmd == 0.0 and self._right_cmd == 0.0:    # ramp done: holding zero (STOPPED stays latched)
+            if self._stop_category == 1:
+                self._flags |= _POWER_OFF
             self._stop_category = None
 
     def _battery_v(self) -> float:

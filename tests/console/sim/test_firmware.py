@@ -339,3 +339,13 @@ def test_telemetry_saturates_at_what_the_wire_can_carry() -> None:
     last = console.telemetry[-1]
     assert last.left == RATE_MAX                                 # 1.35 x RATE_MAX measured
     assert last.right == pytest.approx(0.75 * RATE_MAX, rel=1e-6)
+
+
+def test_stop_frames_repeated_while_stopped_hold_and_category_1_then_removes_power() -> None:
+    console = _released()
+    console.run(1.0, WheelCommand, _rpm(10.0), _rpm(10.0))
+    console.run(2.0, StopCommand, 2)                 # the console repeats its stop frame every cycle
+    assert console.robot.plant.wheel_radps == (0.0, 0.0)
+    assert console.robot.flags == Flags.STOPPED      # power kept, no watchdog trip while held
+    console.run(0.1, StopCommand, 1)
+    assert console.robot.flags == Flags.STOPPED | Flags.POWER_OFF
