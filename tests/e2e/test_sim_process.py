@@ -12,7 +12,7 @@ import socket
 import subprocess
 import sys
 import time
-from collections.abc import Iterator
+from collections.abc import Callable, Iterator
 from pathlib import Path
 
 import pytest
@@ -69,7 +69,7 @@ class Link:
             self.poll()
             time.sleep(POLL_S)
 
-    def wait_for(self, condition, seconds: float) -> Telemetry | None:
+    def wait_for(self, condition: Callable[[Telemetry], object], seconds: float) -> Telemetry | None:
         end = time.monotonic() + seconds
         while time.monotonic() < end:
             self.poll()
@@ -84,7 +84,7 @@ class Link:
         return WREN.units.measured_from_motor(frame.left, frame.right)
 
 
-def test_pty_first_line_commands_telemetry_watchdog_and_clean_exit(pty_sim) -> None:
+def test_pty_first_line_commands_telemetry_watchdog_and_clean_exit(pty_sim: tuple[subprocess.Popen[str], str]) -> None:
     process, path = pty_sim
     assert path.startswith("/dev/") and os.path.exists(path)
     link = Link(path)
@@ -106,7 +106,7 @@ def test_pty_first_line_commands_telemetry_watchdog_and_clean_exit(pty_sim) -> N
     assert process.wait(5) == 0
 
 
-def test_telemetry_after_the_console_went_away_is_fresh(pty_sim) -> None:
+def test_telemetry_after_the_console_went_away_is_fresh(pty_sim: tuple[subprocess.Popen[str], str]) -> None:
     """A console that dies leaves nothing stale behind: the next one to open the device reads current frames."""
     process, path = pty_sim
     first = Link(path)

@@ -5,6 +5,7 @@ from __future__ import annotations
 
 import socket
 import time
+from collections.abc import Callable
 
 import pytest
 import serial
@@ -77,7 +78,7 @@ def test_tcp_end_serves_one_client_at_a_time_on_loopback() -> None:
         end.close()
 
 
-def _wait(read, attempts: int = 2000) -> bytes:
+def _wait(read: Callable[[], bytes | None], attempts: int = 2000) -> bytes:
     """Poll a non-blocking read until it returns something (bounded, so a bug cannot hang the suite)."""
     for _ in range(attempts):
         data = read()
