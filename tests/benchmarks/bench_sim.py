@@ -13,18 +13,21 @@ from __future__ import annotations
 import math
 import os
 import statistics
+import threading
 import time
 from pathlib import Path
 
 from console.profile import load_profile
 from console.protocol import Codec, WheelCommand
 from console.sim.firmware import SUBSTEP_S, SimRobot
+from console.sim.serve import run_wall_clock
 
 PROFILE = Path(__file__).resolve().parents[2] / "profiles" / "wren.toml"
 SIM_S = 20.0
 PERIOD_S = 0.01
 REPEATS = 5
 TARGET_X = 200.0
+WALL_S = 3.0
 
 
 def _commands(units) -> list[tuple[float, float]]:
@@ -71,6 +74,33 @@ def _plant_substep_us() -> float:
     return (time.perf_counter() - start) / (batches * per_batch) * 1e6
 
 
+def _wall_clock_serving() -> dict:
+    """The serving loop of `diffdeck sim` (in a thread, memory link) for WALL_S: how closely sim time follows the wall
+    clock, and the telemetry frames sent against the number due."""
+    robot = SimRobot(load_profile(PROFILE))
+    stop = threading.Event()
+    thread = threading.Thread(target=run_wall_clock, args=(robot, stop))
+    start = time.monotonic()
+    thread.start()
+    codec = Codec()
+    lags = []
+    frames = 0
+    while time.monotonic() - start < WALL_S:
+        time.sleep(0.05)
+        lags.append(time.monotonic() - start - robot.t_s)
+        frames += len(codec.feed(robot.console_end.read()))
+    stop.set()
+    thread.join()
+    frames += len(codec.feed(robot.console_end.read()))
+    frames_due = robot.t_s * robot.profile.sim.telemetry_rate_hz
+    return {
+        "wall_s": WALL_S,
+        "sim_lag_p50_ms": round(1e3 * statistics.median(lags), 3),
+        "sim_lag_max_ms": round(1e3 * max(lags), 3),
+        "telemetry_frames_per_due": round(frames / frames_due, 3),
+    }
+
+
 def run() -> dict:
     alone = [_run_once(False) for _ in range(REPEATS)]
     with_codec = [_run_once(True) for _ in range(REPEATS)]
@@ -86,6 +116,7 @@ def run() -> dict:
         "substep_s": SUBSTEP_S,
         "command_rate_hz": 1.0 / PERIOD_S,
         "simulated_s_per_run": SIM_S,
+        "wall_clock_serving": _wall_clock_serving(),
         "load_average_1min": round(os.getloadavg()[0], 2),
         "cpus": os.cpu_count(),
     }
