@@ -238,9 +238,8 @@ def test_unknown_section(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> 
 
 
 def test_section_that_is_not_a_table(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
-    head, tail = MINIMAL.split("[geometry]\n")
-    text = "geometry = 3\n" + head + tail.split("[limits]")[0].replace("wheel", "#wheel").replace("track", "#track") \
-        + "[limits]" + tail.split("[limits]")[1]
+    robot, rest = MINIMAL.split("[geometry]\n")
+    text = "geometry = 3\n" + robot + "[limits]" + rest.split("[limits]")[1]  # a key instead of the [geometry] table
     path, code, out, err = run_check(tmp_path, text, capsys)
     assert (code, out) == (2, "")
     assert err == f"diffdeck: {path}: geometry = 3: a table: write it as a [geometry] section\n"
