@@ -120,19 +120,30 @@ def _uniform(t: np.ndarray, *signals: np.ndarray) -> tuple[float, np.ndarray, li
     return dt, grid, [np.interp(grid, t, s) for s in signals]
 
 
+def delay(x: np.ndarray, samples: float, fill: float) -> np.ndarray:
+    """x delayed by a fractional number of samples (linear interpolation between the two neighbours), `fill` before."""
+    whole = int(math.floor(samples))
+    frac = samples - whole
+    padded = np.concatenate([np.full(min(whole + 1, x.size), fill), x])[: x.size + 1]
+    shifted = padded[1:] if whole + 1 <= x.size else padded[:x.size]
+    later = padded[:-1]
+    return shifted if frac == 0.0 else (1.0 - frac) * shifted + frac * later
+
+
 def simulate_fopdt(dt: float, u: np.ndarray, gain: float, tau: float, dead: float, y0: float,
                    deadband: float = 0.0) -> np.ndarray:
-    """Response on a uniform grid: exact discretization for a piecewise-constant input, delay by interpolation."""
+    """Response on a uniform grid: exact discretization for a piecewise-constant input, fractional-sample delay."""
     if deadband > 0.0:
         u = np.where(np.abs(u) < deadband, 0.0, u)
-    k = np.arange(u.size)
-    delayed = np.interp(k - dead / dt, k, u, left=u[0])
     a = math.exp(-dt / tau)
-    forced = signal.lfilter([0.0, (1.0 - a) * gain], [1.0, -a], delayed)
-    return forced + y0 * a ** k
+    forced = signal.lfilter([0.0, (1.0 - a) * gain], [1.0, -a], delay(u, dead / dt, float(u[0])))
+    if y0 != 0.0:
+        forced += y0 * np.exp(np.arange(u.size) * (-dt / tau))
+    return forced
 
 
-COARSE_POINTS = 10000
+COARSE_POINTS = 6000
+DEAD_SHARES = np.linspace(0.0, 1.0, 16)
 TAU_GRID = np.geomspace(1e-3, 5.0, 22)
 DEADBAND_SHARES = np.concatenate([[0.0], np.geomspace(0.004, 0.15, 10)])   # of the largest |command|
 
@@ -154,18 +165,23 @@ def fit_fopdt(t: np.ndarray, u: np.ndarray, y: np.ndarray, max_dead_s: float = 0
     dt_c = dt * step
     u_max = float(np.max(np.abs(u_grid)))
     best = (math.inf, 1.0, 0.1, 0.0, 0.0)
+    k = np.arange(y_c.size, dtype=float)
     for deadband in DEADBAND_SHARES * u_max:
         u_db = np.where(np.abs(u_grid) < deadband, 0.0, u_grid)
         u_c = u_db[:n].reshape(-1, step).mean(axis=1)
         for tau in TAU_GRID[TAU_GRID >= dt / 2]:
-            decay = y0 * math.exp(-dt_c / tau) ** np.arange(u_c.size)
-            for dead in np.linspace(0.0, max_dead_s, 16):
-                unit = simulate_fopdt(dt_c, u_c, 1.0, tau, dead, 0.0)
+            a = math.exp(-dt_c / tau)
+            decay = y0 * np.exp(k * (-dt_c / tau))
+            target = y_c - decay
+            # the lag and the delay commute for a command that starts at rest: filter once, delay per candidate
+            lagged = signal.lfilter([0.0, 1.0 - a], [1.0, -a], u_c)
+            for dead in DEAD_SHARES * max_dead_s:
+                unit = delay(lagged, dead / dt_c, 0.0)
                 norm = float(unit @ unit)
                 if norm <= 0.0:
                     continue
-                gain = float((y_c - decay) @ unit) / norm
-                cost = float(np.sum((y_c - decay - gain * unit) ** 2))
+                gain = float(target @ unit) / norm
+                cost = float(target @ target) - gain * gain * norm      # least-squares residual for that gain
                 if cost < best[0]:
                     best = (cost, gain, tau, dead, deadband)
     _, gain0, tau0, dead0, deadband = best
@@ -176,7 +192,8 @@ def fit_fopdt(t: np.ndarray, u: np.ndarray, y: np.ndarray, max_dead_s: float = 0
 
     lower, upper = [-100.0, dt / 20, 0.0], [100.0, 20.0, max_dead_s * 2]
     start = np.clip([gain0, tau0, dead0], np.add(lower, 1e-9), np.subtract(upper, 1e-9))
-    result = optimize.least_squares(residual, start, bounds=(lower, upper), x_scale=[1.0, 0.05, 0.01])
+    result = optimize.least_squares(residual, start, bounds=(lower, upper), x_scale=[1.0, 0.05, 0.01],
+                                     xtol=1e-6, ftol=1e-8)
     gain, tau, dead = (float(v) for v in result.x)
     res = result.fun
     total = float(np.sum((y_grid - y_grid.mean()) ** 2))

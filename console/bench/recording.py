@@ -45,7 +45,6 @@ class Segment:
 class Recording:
     path: Path
     data: dict[str, np.ndarray]         # every numeric column by name (NaN where the field was empty)
-    state: np.ndarray                   # the `state` column (str)
     wheel_radius_m: float | None
     track_width_m: float | None
     top_speed_mps: float | None
@@ -92,14 +91,12 @@ def read_recording(path: str | Path) -> Recording:
     pose = tuple(columns[len(COLUMNS):len(COLUMNS) + 3]) == POSE_COLUMNS
     names = NUMERIC + (POSE_COLUMNS if pose else ())
     usecols = [columns.index(name) for name in names]
-    state_col = columns.index("state")
     # Empty fields (no measurement yet) become nan; two passes cover runs of empty fields.
     body = body.replace(",,", ",nan,").replace(",,", ",nan,").replace(",\n", ",nan\n")
     if body.endswith(","):
         body += "nan"
     try:
         table = np.loadtxt(io.StringIO(body), delimiter=",", usecols=usecols, ndmin=2, dtype=float)
-        state = np.loadtxt(io.StringIO(body), delimiter=",", usecols=[state_col], dtype=str, ndmin=1)
     except ValueError as error:
         match = _ROW_RE.search(str(error))
         line = int(match.group(1)) + 1 if match else "?"
@@ -122,7 +119,7 @@ def read_recording(path: str | Path) -> Recording:
         geometry = ((meta.get("profile") or {}).get("data") or {}).get("geometry") or {}
         radius, track = geometry.get("wheel_radius_m"), geometry.get("track_width_m")
     segments = _segments(path, bench, float(t[0]), float(t[-1]))
-    return Recording(path, data, state, radius, track, top, segments,
+    return Recording(path, data, radius, track, top, segments,
                      bench["program"]["name"] if bench else None, bench)
 
 
