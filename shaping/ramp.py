@@ -140,6 +140,18 @@ class Ramp:
         jerk = self._jerks[index]
         return v + a * dt + 0.5 * jerk * dt * dt, a + jerk * dt, jerk
 
+    def extent(self) -> tuple[float, float]:
+        """Lowest and highest v on the way: at segment joints or where the acceleration passes zero."""
+        low = high = self.target
+        ends = [*self._starts[1:], self.duration]
+        for start, end, (v, a), jerk in zip(self._starts, ends, self._states, self._jerks):
+            low, high = min(low, v), max(high, v)
+            if jerk != 0.0 and 0.0 < -a / jerk < end - start:
+                turn_at = -a / jerk
+                v_turn = v + 0.5 * a * turn_at
+                low, high = min(low, v_turn), max(high, v_turn)
+        return low, high
+
     def joints(self) -> list[float]:
         """Times at which the jerk changes: every segment's start, and the end."""
         return [*self._starts, self.duration]

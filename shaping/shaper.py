@@ -131,6 +131,10 @@ class _AxesMotion:
         self.turn = turn
         self.duration = max(speed.duration, turn.duration)
 
+    def box(self) -> tuple[tuple[float, float], tuple[float, float]]:
+        """The ranges of v and omega that the way stays in."""
+        return self.speed.extent(), self.turn.extent()
+
     def joints(self) -> list[float]:
         """Times at which either axis changes its jerk, from 0 to the end."""
         return sorted({0.0, *self.speed.joints(), *self.turn.joints()})
@@ -157,6 +161,12 @@ class _LineMotion:
         sigma, rate, change = self.sigma.sample(t)
         dv, dw = self.step
         return self.start[0] + dv * sigma, dv * rate, dv * change, self.start[1] + dw * sigma, dw * rate, dw * change
+
+    def box(self) -> tuple[tuple[float, float], tuple[float, float]]:
+        low, high = self.sigma.extent()
+        (v, w), (dv, dw) = self.start, self.step
+        v_ends, w_ends = (v + dv * low, v + dv * high), (w + dw * low, w + dw * high)
+        return (min(v_ends), max(v_ends)), (min(w_ends), max(w_ends))
 
     def joints(self) -> list[float]:
         return sorted({0.0, *self.sigma.joints()})
@@ -254,6 +264,12 @@ class Shaper:
         rate and each wheel's rate peak at a piece's end or at their vertex. The sideways product v * omega is
         checked at the same points and mid-piece.
         """
+        # Cheap and sufficient first: the box the way stays in is inside when its corners are (the linear limits
+        # bound a convex region, and |v * omega| is largest at a corner).
+        (v_low, v_high), (w_low, w_high) = motion.box()
+        usage = self.envelope.usage
+        if max(usage(v, w)[0] for v in (v_low, v_high) for w in (w_low, w_high)) <= 1.0:
+            return True
         limits, geometry = self.envelope.limits, self.envelope.geometry
         half_track = 0.5 * geometry.track_width_m
         rim_speed = limits.wheel_rate_radps * geometry.wheel_radius_m * _SLACK
