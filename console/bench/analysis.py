@@ -38,6 +38,7 @@ class StepMetrics:
     overshoot_pct: float | None
     settling_time_s: float | None
     steady_state_error: float
+    settling_band_pct: float = 100 * SETTLING_BAND   # widened to 3 sigma of the steady-state noise when that is larger
 
 
 def _first_crossing(t: np.ndarray, z: np.ndarray, level: float) -> float | None:
@@ -65,6 +66,7 @@ def step_metrics(t: np.ndarray, y: np.ndarray, t_step: float, request_before: fl
     initial = float(np.mean(y[before])) if np.any(before) else float(ya[0])
     tail = max(3, int(math.ceil(FINAL_SHARE * ta.size)))
     final = float(np.mean(ya[-tail:]))
+    noise = float(np.std(ya[-tail:]))
     change = final - initial
     error = request_after - final
     if abs(change) < 1e-9 or abs(change) < 0.05 * abs(request_after - request_before):
@@ -75,7 +77,8 @@ def step_metrics(t: np.ndarray, y: np.ndarray, t_step: float, request_before: fl
     t10, t90 = _first_crossing(rel, z, RISE_LOW), _first_crossing(rel, z, RISE_HIGH)
     rise = None if t10 is None or t90 is None else t90 - t10
     overshoot = max(0.0, float(np.max(z)) - 1.0) * 100.0
-    outside = np.flatnonzero(np.abs(z - 1.0) > SETTLING_BAND)
+    band = max(SETTLING_BAND, 3.0 * noise / abs(change))
+    outside = np.flatnonzero(np.abs(z - 1.0) > band)
     if outside.size == 0:
         settling: float | None = 0.0
     elif outside[-1] >= z.size - 1:
@@ -83,9 +86,10 @@ def step_metrics(t: np.ndarray, y: np.ndarray, t_step: float, request_before: fl
     else:
         i = int(outside[-1])
         e0, e1 = abs(z[i] - 1.0), abs(z[i + 1] - 1.0)
-        settling = float(rel[i] + (e0 - SETTLING_BAND) / (e0 - e1) * (rel[i + 1] - rel[i])) if e0 != e1 \
+        settling = float(rel[i] + (e0 - band) / (e0 - e1) * (rel[i + 1] - rel[i])) if e0 != e1 \
             else float(rel[i + 1])
-    return StepMetrics(t_step, request_before, request_after, initial, final, dead, rise, overshoot, settling, error)
+    return StepMetrics(t_step, request_before, request_after, initial, final, dead, rise, overshoot, settling, error,
+                       100.0 * band)
 
 
 # --- first order plus dead time ----------------------------------------------------------------------------------

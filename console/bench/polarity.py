@@ -51,12 +51,14 @@ class PolarityReport:
         return "\n".join(lines) + "\n"
 
 
-def _pulses(rec: Recording) -> dict[str, list[tuple[float, float]]]:
-    """Step segments on a wheel axis with a non-zero target: (t_start, t_end) per channel."""
-    pulses: dict[str, list[tuple[float, float]]] = {"left": [], "right": []}
-    for seg in rec.segments:
-        if seg.axis in WHEELS and seg.kind == "step" and seg.end != 0.0:
-            pulses[seg.axis].append((seg.t_start_s, seg.t_end_s))
+def _pulses(rec: Recording) -> dict[str, list[tuple[float, float, float]]]:
+    """Pulses per channel: a wheel-axis step from rest followed by a hold at rest (t_start, t_end, t_rest_end)."""
+    pulses: dict[str, list[tuple[float, float, float]]] = {"left": [], "right": []}
+    segments = rec.segments
+    for seg, after in zip(segments, segments[1:]):
+        if seg.axis in WHEELS and seg.kind == "step" and seg.start == 0.0 and seg.end != 0.0 \
+                and after.kind == "hold" and after.start == 0.0:
+            pulses[seg.axis].append((seg.t_start_s, seg.t_end_s, after.t_end_s))
     return pulses
 
 
@@ -89,13 +91,12 @@ def check_polarity(rec: Recording, units: dict[str, object] | None = None) -> Po
     physical: list[tuple[float, float]] | None = [] if rec.has_pose and rec.wheel_radius_m else None
     for channel in WHEELS:
         ratios, phys = [], []
-        for t0, t1 in pulses[channel]:
+        for t0, t1, t_after in pulses[channel]:
             steady = (t >= t1 - STEADY_SHARE * (t1 - t0)) & (t < t1)
             command = float(np.nanmean(cmd[channel][steady]))
             ratios.append([float(np.nanmean(meas[w][steady])) / command for w in WHEELS])
             if physical is not None:
                 # until the wheels have stopped again: the pulse plus the pause after it
-                t_after = min((s.t_end_s for s in rec.segments if s.t_start_s >= t1 - 1e-9), default=t1)
                 window = (t >= t0) & (t <= t_after)
                 commanded_angle = float(np.sum(cmd[channel][window]) * dt)
                 travel = _wheel_travel(rec, t0, t_after)

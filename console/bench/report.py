@@ -146,7 +146,8 @@ def _median_metrics(metrics: list[StepMetrics]) -> StepMetrics | None:
     first = metrics[0]
     return StepMetrics(first.t_step_s, first.request_before, first.request_after, first.initial, first.final,
                        med("dead_time_s"), med("rise_time_s"), med("overshoot_pct"), med("settling_time_s"),
-                       float(np.median([m.steady_state_error for m in metrics])))
+                       float(np.median([m.steady_state_error for m in metrics])),
+                       float(np.max([m.settling_band_pct for m in metrics])))
 
 
 def _peak(values: np.ndarray | None, rows: np.ndarray) -> float | None:
@@ -338,7 +339,8 @@ def markdown(report: Report) -> str:
             f"{_fmt(m.steady_state_error if m else None)} | {_fmt(s.peak_accel_cmd)} / {_fmt(s.peak_accel)} | "
             f"{_fmt(s.peak_jerk_cmd)} / {_fmt(s.peak_jerk)} | {_fmt(s.tracking_rms)} | "
             f"{_fmt(s.mismatch_rms_radps)} / {_fmt(s.mismatch_peak_radps)} |")
-    lines += ["", "Step metrics are timed from the request step, relative to the response's own change; "
+    lines += ["", "Step metrics are timed from the request step, relative to the response's own change; the "
+              "settling band is 2 % or 3 standard deviations of the steady-state noise, whichever is wider; "
               "peak accelerations and jerks are per second of the axis unit.", "",
               "## Wheel response (first order plus dead time)", "",
               "| wheel | gain | time constant s | dead time s | R^2 | NRMSE |", "|---|---|---|---|---|---|"]

@@ -12,7 +12,7 @@ from pathlib import Path
 
 import pytest
 
-from console.bench.program import builtin
+from console.bench.program import builtin, load_program
 from console.bench.recording import read_recording
 from console.bench.report import FIGURES, analyze, write_report
 from console.bench.run import BenchRun
@@ -111,3 +111,21 @@ def test_a_stopped_run_ends_under_control_and_keeps_its_recording(tmp_path: Path
     assert len(rec.segments) < 4             # the segments after the stop are not claimed
     side = json.loads(result.bench_sidecar.read_text())
     assert side["completed"] is False and side["cause"] == "operator"
+
+
+def test_segments_around_the_shaper_send_raw_steps_and_identify_the_motor(tmp_path: Path) -> None:
+    profile = load_profile(WREN)
+    program = load_program(ROOT / "profiles" / "programs" / "wheels-up-identify.toml")
+    run = BenchRun(profile, program, out_dir=tmp_path)
+    assert run.bypass_available
+    result = run.run_to_end()
+    assert result.completed
+    rec = read_recording(result.recording)
+    first = rec.segments[1]                      # "left raw 20 %": the command jumps within one period
+    rows = (rec.t >= first.t_start_s) & (rec.t < first.t_start_s + 0.02)
+    assert rec.data["left_cmd_radps"][rows][-1] == pytest.approx(0.2 * profile.limits.wheel_rate_radps)
+    report = analyze(rec)
+    assert report.segments[1].bypass
+    # the sim's torque limit (45 rad/s^2) slows the start of a raw 4 rad/s step a little: still within 15 %
+    for wheel in ("left", "right"):
+        assert report.fits[wheel].tau_s == pytest.approx(profile.sim.motor_time_constant_s, rel=0.15)
