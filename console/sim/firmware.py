@@ -30,7 +30,7 @@ import math
 from typing import TYPE_CHECKING
 
 from console.errors import InputError, LinkLost
-from console.protocol import RATE_MAX, SEQ_MODULUS, Codec, Flags, Frame, Heartbeat, StopCommand, Telemetry, WheelCommand
+from console.protocol import RATE_MAX, SEQ_MODULUS, Codec, Flags, Frame, StopCommand, Telemetry, WheelCommand
 from console.sim.plant import Plant
 from console.templates import TemplateRobotCodec
 from console.transport import Transport, memory_pair
@@ -173,19 +173,18 @@ class SimRobot:
 
     def _apply(self, frame: Frame) -> None:
         kind = type(frame)
+        if kind is Telemetry:
+            return                           # not meant for a robot
+        self._echo_seq = frame.seq           # every valid console frame is echoed (round-trip time)
         if kind is WheelCommand:
-            self._echo_seq = frame.seq
             self._last_command_s = self.t_s
             self._command(*self._units.from_motor(frame.left, frame.right), frame.left == 0.0 and frame.right == 0.0)
         elif kind is StopCommand:
-            self._echo_seq = frame.seq
             if frame.category == 0:
                 self._halt()
             else:
                 self._begin_stop(frame.category)
-        elif kind is Heartbeat:
-            self._echo_seq = frame.seq
-        # Telemetry from the console side is not meant for us: ignored.
+        # A Heartbeat only proves the console is there: echoed, nothing else.
 
     def _command(self, left_radps: float, right_radps: float, at_rest: bool) -> None:
         if not self._running:
