@@ -99,7 +99,8 @@ def read_recording(path: str | Path) -> Recording:
         table = np.loadtxt(io.StringIO(body), delimiter=",", usecols=usecols, ndmin=2, dtype=float)
     except ValueError as error:
         match = _ROW_RE.search(str(error))
-        line = int(match.group(1)) + 1 if match else "?"
+        # numpy counts rows from 0 in conversion errors and from 1 in column-count errors; line 1 is the header
+        line = int(match.group(1)) + (2 if "convert" in str(error) else 1) if match else "?"
         raise _fail(path, f"line {line}", str(error).split(" at row")[0][:80],
                     f"{len(columns)} comma-separated fields per row, numbers in {', '.join(names)}")
     if table.shape[0] < MIN_ROWS:

@@ -1,0 +1,99 @@
+"""`report` and `calibrate` on the command line: bad recordings are one line and exit 2; calibrate's files."""
+
+from __future__ import annotations
+
+import shutil
+from pathlib import Path
+
+import pytest
+
+from console.bench.program import builtin
+from console.bench.run import BenchRun
+from console.cli import main
+from console.errors import InputError
+from console.profile import load_profile
+from console.record import COLUMNS
+from console.verbs.calibrate import parse_end_position
+
+ROOT = Path(__file__).resolve().parents[3]
+WREN = ROOT / "profiles" / "wren.toml"
+HEADER = ",".join(COLUMNS)
+
+
+def _rows(n: int, start: float = 0.01) -> str:
+    return "".join(f"{start + k * 0.01:.2f},0,0,0,0,0,0,,,disarmed\n" for k in range(n))
+
+
+BAD = [
+    (None, "file", "readable"),
+    ("", "header", "header beginning t_s,v_req_mps"),
+    ("time,speed\n1,2\n", "header", "header beginning"),
+    (HEADER + "\n" + _rows(5), "rows", "at least 20"),
+    (HEADER + "\n" + _rows(30) + "0.40,0,zero,0,0,0,0,,,armed\n", "line 32", "numbers in t_s"),
+    (HEADER + "\n" + _rows(30) + "0.40,0,0\n", "line 32", "fields per row"),
+    (HEADER + "\n" + _rows(30) + _rows(5, start=0.05), "line 32 t_s", "strictly increasing"),
+]
+
+
+@pytest.mark.parametrize(("text", "key", "allowed"), BAD)
+def test_bad_recordings_are_one_line_and_exit_2(tmp_path: Path, capsys: pytest.CaptureFixture[str],
+                                                text: str | None, key: str, allowed: str) -> None:
+    path = tmp_path / "rec.csv"
+    if text is not None:
+        path.write_text(text)
+    code = main(["report", str(path), "-o", str(tmp_path / "out")])
+    err = capsys.readouterr().err
+    assert code == 2
+    assert err.count("\n") == 1 and str(path) in err and key in err and allowed in err, err
+    assert not (tmp_path / "out").exists()
+
+
+def test_a_broken_bench_sidecar_is_one_line(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
+    result = BenchRun(load_profile(WREN), builtin("spin"), out_dir=tmp_path).run_to_end()
+    result.bench_sidecar.write_text("{ not json")
+    assert main(["report", str(result.recording), "-o", str(tmp_path / "out")]) == 2
+    err = capsys.readouterr().err
+    assert err.count("\n") == 1 and result.bench_sidecar.name in err
+
+
+def test_a_recording_without_sidecars_is_one_segment(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
+    result = BenchRun(load_profile(WREN), builtin("spin"), out_dir=tmp_path).run_to_end()
+    bare = tmp_path / "bare.csv"
+    shutil.copy(result.recording, bare)
+    assert main(["report", str(bare), "-o", str(tmp_path / "out"), "--json"]) == 0
+    out = capsys.readouterr().out
+    assert '"whole recording"' in out and "no geometry" in out
+
+
+def test_calibrate_writes_a_corrected_copy_and_write_keeps_a_backup(tmp_path: Path,
+                                                                    capsys: pytest.CaptureFixture[str]) -> None:
+    profile = tmp_path / "cart.toml"
+    text = WREN.read_text().replace("wheel_radius_ratio = 1.0", "wheel_radius_ratio = 1.004")
+    profile.write_text(text)
+    args = ["calibrate", str(profile), "--side-m", "2", "--out", str(tmp_path / "rec")]
+    assert main(args) == 0
+    copy = tmp_path / "cart.calibrated.toml"
+    assert profile.read_text() == text                          # the original untouched
+    corrected = load_profile(copy)
+    assert corrected.units.trim_right < 1.0 < corrected.units.trim_left   # the larger right wheel turns slower
+    assert "x smaller" in capsys.readouterr().err
+    assert main([*args, "--write"]) == 0
+    assert (tmp_path / "cart.toml.bak").read_text() == text
+    assert load_profile(profile).units.trim_left == pytest.approx(corrected.units.trim_left, rel=1e-3)
+    assert "# 124 mm wheels" in profile.read_text()              # comments kept
+
+
+def test_calibrate_rejects_a_side_too_short_to_stop_in(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
+    assert main(["calibrate", str(WREN), "--side-m", "0.01", "--out", str(tmp_path)]) == 2
+    assert "--side-m" in capsys.readouterr().err
+
+
+@pytest.mark.parametrize(("text", "expected"), [("0.12 -0.05", (0.12, -0.05)), ("0.1, 0.2\n", (0.1, 0.2))])
+def test_typed_end_positions(text: str, expected: tuple[float, float]) -> None:
+    assert parse_end_position(text) == pytest.approx(expected)
+
+
+@pytest.mark.parametrize("text", ["", "0.1", "a b", "1 2 3", "nan 0", "100 0"])
+def test_bad_typed_end_positions(text: str) -> None:
+    with pytest.raises(InputError, match="end position"):
+        parse_end_position(text)
