@@ -102,8 +102,11 @@ def _wall_clock_serving() -> dict:
 
 
 def run() -> dict:
-    alone = [_run_once(False) for _ in range(REPEATS)]
-    with_codec = [_run_once(True) for _ in range(REPEATS)]
+    _run_once(True)                     # warm-up (imports, caches), not counted
+    alone, with_codec = [], []
+    for _ in range(REPEATS):            # interleaved, so a change in machine load hits both alike
+        alone.append(_run_once(False))
+        with_codec.append(_run_once(True))
     robot_alone = statistics.median(wall for wall, _ in alone)
     return {
         "x_real_time": round(robot_alone, 1),
