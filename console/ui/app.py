@@ -31,7 +31,7 @@ if TYPE_CHECKING:
     from console.profile import Profile
 
 RENDER_HZ_MAX = 30.0
-HEAVY_PERIOD_S = 0.125
+HEAVY_PERIOD_S = 0.2
 """The plot and the top view (the biggest panels) repaint at most every 1/8 s of loop time: that scrolls smoothly
 enough and keeps the whole console within its CPU budget; their samples are still taken on every tick. Loop time,
 not ticks, decides, so a run on the virtual clock draws the same frames every time."""
@@ -214,7 +214,7 @@ class DriveApp(App[int]):
     ]
 
     def __init__(self, loop: ControlLoop, profile: Profile, clock: Clock, settings: DriveSettings, *,
-                 real_link: bool, render_hz: float = 25.0, trace: KeyWireTrace | None = None,
+                 real_link: bool, render_hz: float = 20.0, trace: KeyWireTrace | None = None,
                  on_ready: Callable[[], None] | None = None) -> None:
         super().__init__()
         self.loop = loop

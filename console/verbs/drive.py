@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import argparse
 import dataclasses
+import gc
 import math
 import sys
 import time
@@ -119,17 +120,30 @@ def run(args: argparse.Namespace) -> int:
     clock = WallClock()
     loop = ControlLoop(profile, transport, clock, sim=sim, recorder=recorder, ui_timeout_s=UI_TIMEOUT_S,
                        url=profile.link.url)
-    app = DriveApp(loop, profile, clock, settings, real_link=sim is None, trace=trace, on_ready=loop.start)
+
+    def start_loop() -> None:
+        """Once the screen is up: freeze what start-up allocated, then start the loop thread.
+
+        A full garbage collection holds the interpreter for as long as it takes (tens of ms with a Textual app's
+        objects); after gc.freeze() those long-lived objects are never scanned again, so the collections that still
+        happen are short and the loop thread keeps its deadlines.
+        """
+        gc.collect()
+        gc.freeze()
+        loop.start()
+
+    app = DriveApp(loop, profile, clock, settings, real_link=sim is None, trace=trace, on_ready=start_loop)
     try:
         app.run()
     finally:
         _bring_to_rest(loop)
         loop.close()
         if recorder is not None:
-            path = recorder.close(loop.stats(), loop.link_stats())
-            print(f"diffdeck drive: recorded {path}", file=sys.stderr)
+            recorder.close(loop.stats(), loop.link_stats())
+            print(f"diffdeck drive: recorded {recorder.path}", file=sys.stderr)
         if trace is not None:
-            trace.save({"loop": dataclasses.asdict(loop.stats()), "link": dataclasses.asdict(loop.link_stats())})
+            trace.save({"loop": dataclasses.asdict(loop.stats()), "link": dataclasses.asdict(loop.link_stats()),
+                        "events": [(e.t_s, e.text, e.kind) for e in loop.snapshot().events]})
     if loop.failure is not None:
         print(f"diffdeck drive: the control loop failed: {loop.failure!r}", file=sys.stderr)
         return 1

@@ -1,0 +1,39 @@
+"""The drive console in a real terminal (tmux): arm with the two-key sequence, drive with the arrow keys, stop with
+the space bar, quit with q; what the operator would read is checked on the captured screen."""
+
+from __future__ import annotations
+
+import pytest
+
+from tests.e2e.tmux_console import TmuxConsole, tmux_missing_reason
+
+pytestmark = pytest.mark.e2e
+
+_reason = tmux_missing_reason()
+
+
+@pytest.mark.skipif(_reason is not None, reason=_reason or "")
+def test_drive_arms_drives_and_stops_in_a_real_terminal() -> None:
+    console = TmuxConsole(["profiles/wren.toml", "--mode", "latched", "--speed-step-mps", "0.05"])
+    try:
+        console.started(r"DISARMED")
+        console.wait_for(r"telemetry +\d+ ms ago")         # the simulated robot answers: arming is possible
+        console.keys("a")
+        console.wait_for(r"ENTER")
+        console.keys("Enter")
+        console.wait_for(r"(?<![A-Z])ARMED(?![A-Z])")
+        for _ in range(6):
+            console.keys("Up")
+        screen = console.wait_for(r"█ out \+0\.30")          # shaped speed reached the six nudges
+        assert "▼ req +0.30" in screen
+        console.keys("Space")
+        console.wait_for(r"STOPP(ING|ED) — cause: operator")
+        screen = console.wait_for(r"STOPPED — cause")            # (a loaded machine may add a watchdog trip)
+        assert "█ out +0.00" in screen
+        console.keys("Up")                                   # no motion after a stop until re-armed
+        screen = console.wait_for(r"not armed")
+        assert "█ out +0.00" in screen
+        console.keys("q")
+        assert console.wait_closed(), "the console did not exit on q"
+    finally:
+        console.close()
