@@ -79,7 +79,8 @@ class WheelUnits:
         """Firmware command values -> wheel rates in rad/s: undoes unit, polarity and channel swap, not trim.
 
         Trim exists to make a mismatched motor follow; what a motor receives is the physical rate, so the trim is
-        not divided out again. The simulated robot uses this to read the commands it is sent.
+        not divided out again. (The simulated robot reads its commands with a units object that holds only the unit:
+        the polarity and swap keys are the console's corrections, not the robot's.)
         """
         if self.swap_motors:
             left, right = right, left
