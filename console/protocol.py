@@ -244,10 +244,30 @@ class Decoder:
             data = bytes(data)      # bytearray / memoryview from a port
         frames: list[Frame] = []
         if b"\n" in data:
-            lines = (self._pending + data).split(b"\n")
+            lines = (self._pending + data if self._pending else data).split(b"\n")
             self._pending = lines.pop()
-            for line in lines:
-                self._line(line, frames)
+            for line in lines:      # the per-line work is inlined here: it is the codec's hot path
+                at = line.rfind(b"@")
+                if at:
+                    if at < 0:
+                        self.noise_bytes += len(line)
+                        continue
+                    self.noise_bytes += at
+                    line = line[at:]
+                if len(line) >= MAX_LINE:
+                    self.overlong_lines += 1
+                    continue
+                known = _FRAMES.get(line[:4])
+                if known is not None:
+                    m = known[0].fullmatch(line)
+                    if m is not None:
+                        g = m.groups()
+                        if int(g[-1], 16) == binascii.crc_hqx(g[0], CRC_INIT):
+                            frame = known[1](g)
+                            if frame is not None:
+                                frames.append(frame)
+                                continue
+                self._why(line)
         else:
             self._pending += data
         if len(self._pending) >= MAX_LINE:
@@ -268,29 +288,6 @@ class Decoder:
         else:
             self.noise_bytes += at
             self._pending = pending[at:]
-
-    def _line(self, line: bytes, frames: list[Frame]) -> None:
-        at = line.rfind(b"@")
-        if at < 0:
-            self.noise_bytes += len(line)
-            return
-        if at:
-            self.noise_bytes += at
-            line = line[at:]
-        if len(line) >= MAX_LINE:
-            self.overlong_lines += 1
-            return
-        known = _FRAMES.get(line[:4])
-        if known is not None:
-            m = known[0].fullmatch(line)
-            if m is not None:
-                g = m.groups()
-                if int(g[-1], 16) == binascii.crc_hqx(g[0], CRC_INIT):
-                    frame = known[1](g)
-                    if frame is not None:
-                        frames.append(frame)
-                        return
-        self._why(line)
 
     def _why(self, line: bytes) -> None:
         """Count a line from "@" that is not a frame of this version under the right heading."""
