@@ -265,7 +265,7 @@ def make_codec(link: LinkConfig) -> Any:
     return Codec()
 
 
-def _raise_priority() -> str:
+def request_realtime() -> str:
     """Real-time scheduling for the calling thread if the OS grants it; says which scheduling the loop runs with."""
     try:
         os.sched_setscheduler(0, os.SCHED_FIFO, os.sched_param(REALTIME_PRIORITY))
@@ -420,7 +420,7 @@ class ControlLoop:
         self._thread.start()
 
     def _run(self, realtime: bool) -> None:
-        self.scheduling = _raise_priority() if realtime else "normal scheduling"
+        self.scheduling = request_realtime() if realtime else "normal scheduling"
         try:
             while not self._closing.is_set():
                 self._cycle(self._scheduler.wait())

@@ -2,7 +2,8 @@
 
 At 100, 200 and 500 Hz for DIFFDECK_BENCH_LOOP_S seconds each (default 20): period error (actual start - scheduled
 start) p50 / p99 / max, missed periods, work time p99, with the robot armed and driving a repeating manoeuvre and the
-session recorded, as in `play`. Target at 200 Hz: p99 <= 0.5 ms, max <= 2 ms, no missed period (reported, not
+session recorded, as in `play`; beside it a bare sleeper (same clock and scheduling, no work) shows the host's own
+wake-up jitter. Target at 200 Hz: p99 <= 0.5 ms, max <= 2 ms, no missed period (reported, not
 asserted: the figures depend on the machine and on what else runs on it).
 """
 
@@ -11,10 +12,12 @@ from __future__ import annotations
 import dataclasses
 import os
 import tempfile
+import threading
 import time
 from pathlib import Path
 
-from console.loop import ControlLoop, SafetyState, VirtualClock, WallClock
+from console.loop import (ControlLoop, CycleStats, DeadlineScheduler, SafetyState, VirtualClock, WallClock,
+                          request_realtime)
 from console.profile import load_profile
 from console.record import Recorder
 from console.sim.firmware import SimRobot
@@ -66,6 +69,28 @@ def _one_rate(rate_hz: float, duration_s: float, folder: Path) -> dict[str, floa
     }
 
 
+def _bare_sleeper(rate_hz: float, duration_s: float) -> dict[str, float | int | str]:
+    """The machine's own wake-up jitter: the same clock and thread scheduling, no work at all (side by side with the
+    loop, to tell the loop's lateness from the host's)."""
+    out: dict[str, float | int | str] = {}
+
+    def body() -> None:
+        out["scheduling"] = request_realtime()
+        clock, period, stats = WallClock(), 1.0 / rate_hz, CycleStats()
+        scheduler = DeadlineScheduler(clock, period)
+        for _ in range(round(duration_s * rate_hz)):
+            tick = scheduler.wait()
+            stats.add(tick.error_s, 0.0)
+        p50, p99, _ = stats.percentiles()
+        out.update(missed_periods=scheduler.missed_total, period_error_p50_ms=round(p50 * 1e3, 4),
+                   period_error_p99_ms=round(p99 * 1e3, 4), period_error_max_ms=round(stats.error_max_s * 1e3, 4))
+
+    thread = threading.Thread(target=body)
+    thread.start()
+    thread.join()
+    return out
+
+
 def _virtual_speed(simulated_s: float = 20.0) -> dict[str, float]:
     """The whole loop (shaper, codec, sim, snapshots, no recorder) on the virtual clock, as a multiple of real time."""
     profile = load_profile(WREN)
@@ -92,6 +117,7 @@ def run() -> dict:
     with tempfile.TemporaryDirectory() as folder:
         for rate in RATES_HZ:
             figures[f"{rate:g}_hz"] = _one_rate(rate, duration_s, Path(folder))
+    figures[f"bare_sleeper_{TARGET_RATE_HZ:g}_hz"] = _bare_sleeper(TARGET_RATE_HZ, duration_s)
     figures["virtual_clock_loop_and_sim"] = _virtual_speed()
     at = figures[f"{TARGET_RATE_HZ:g}_hz"]
     figures["target_200_hz"] = {
