@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+from rich.console import Group
+from rich.table import Table
 from rich.text import Text
 from textual.app import ComposeResult
 from textual.binding import Binding
@@ -61,17 +63,23 @@ CAUTIONS = (
 )
 
 
-def help_text(deadman_s: float) -> Text:
-    text = Text()
+def help_text(deadman_s: float) -> Group:
+    """The help overlay's content: a two-column table per group (descriptions wrap under themselves), then notes."""
+    parts: list[Table | Text] = []
     for title, rows in HELP_GROUPS:
-        text.append(f"{title}\n", "bold underline")
+        table = Table.grid(padding=(0, 2))
+        table.add_column(no_wrap=True, style="bold", min_width=12)
+        table.add_column(ratio=1)
         for keys, what in rows:
-            text.append(f"  {keys:<14}", "bold")
-            text.append(f"{what}\n")
-        text.append("\n")
+            table.add_row(keys, what)
+        parts += [Text(title, style="bold underline"), table, Text("")]
+    notes = Table.grid(padding=(0, 1))
+    notes.add_column(no_wrap=True)
+    notes.add_column(ratio=1)
     for note in HELP_NOTES:
-        text.append("• " + note.format(deadman=deadman_s) + "\n")
-    return text
+        notes.add_row("•", note.format(deadman=deadman_s))
+    parts.append(notes)
+    return Group(*parts)
 
 
 class HelpScreen(ModalScreen[None]):

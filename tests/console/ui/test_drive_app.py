@@ -6,14 +6,16 @@ test only decides when loop time passes (`rig.advance`).
 
 from __future__ import annotations
 
+import io
 import math
 
 import pytest
+from rich.console import Console
 
 from console.loop import SafetyState, StopCause
 from console.ui.app import DriveApp, DriveScreen
 from console.ui.driving import DriveMode
-from console.ui.screens import HELP_GROUPS, CautionScreen, HelpScreen
+from console.ui.screens import HELP_GROUPS, CautionScreen, HelpScreen, help_text
 from console.ui.widgets import SafetyBanner
 from shaping.shaper import StopKind
 from tests.console.ui.conftest import Rig, make_rig
@@ -37,6 +39,12 @@ async def arm(rig: Rig, pilot) -> None:
     await pilot.press("a", "enter")
     rig.advance(0.04)
     assert rig.snap.state is SafetyState.ARMED
+
+
+def rendered_text(renderable: object) -> str:
+    console = Console(width=100, record=True, file=io.StringIO())
+    console.print(renderable)
+    return " ".join(console.export_text().split())
 
 
 def banner_text(app: DriveApp) -> str:
@@ -275,8 +283,8 @@ async def test_help_overlay_lists_every_binding_and_the_key_release_caveat(rig: 
         for key in _key_names(DriveApp.BINDINGS) | _key_names(DriveScreen.BINDINGS):
             shown = "1 … 9" if key in "123456789" and len(key) == 1 else spoken.get(key, key)
             assert shown in listed, f"key {key!r} is bound but not in the help overlay"
-        text = str(rig.app.screen.query_one("#help-text").render())
-        assert "key-release" in text and "auto-repeat" in text
+        text = rendered_text(help_text(rig.app.drive.deadman_s))
+        assert "key-release" in text and "auto-repeat" in text and "0.70 s" in text
         await pilot.press("escape")
         await pilot.pause()
         assert isinstance(rig.app.screen, DriveScreen)
