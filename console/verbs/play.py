@@ -14,7 +14,6 @@ from __future__ import annotations
 import argparse
 import bisect
 import signal
-import sys
 import time
 from pathlib import Path
 from types import FrameType
