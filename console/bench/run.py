@@ -11,6 +11,7 @@ from __future__ import annotations
 import enum
 import json
 import os
+import time
 from dataclasses import dataclass
 from datetime import datetime, timezone
 from pathlib import Path
@@ -25,6 +26,8 @@ from console.transport import memory_pair, open_url
 from shaping.shaper import StopKind
 
 FORMAT = "diffdeck bench 1"
+STOP_WAIT_S = 30.0
+"""Longest a run closed early waits for its controlled stop to finish."""
 TELEMETRY_WAIT_S = 2.0
 """How long a run waits for the first telemetry before giving up (the robot is not answering)."""
 
@@ -81,7 +84,8 @@ class BenchRun:
     """A program on one robot. Fast (virtual clock, `step`) on the simulated robot; real time (`start`) otherwise."""
 
     def __init__(self, profile: Profile, program: Program, *, out_dir: Path = Path("recordings"),
-                 link_url: str | None = None, fast: bool | None = None, recording: Path | None = None) -> None:
+                 link_url: str | None = None, fast: bool | None = None, recording: Path | None = None,
+                 ui_timeout_s: float | None = None) -> None:
         url = link_url or profile.link.url
         on_sim = url == "sim"
         self.fast = on_sim if fast is None else fast
@@ -105,7 +109,7 @@ class BenchRun:
         self.recorder = Recorder(self.path, profile, url)
         clock = VirtualClock() if self.fast else WallClock()
         self.loop = ControlLoop(profile, transport, clock, sim=self.sim, recorder=self.recorder, url=url,
-                                on_cycle=self._on_cycle)
+                                on_cycle=self._on_cycle, ui_timeout_s=ui_timeout_s)
         self._phase = Phase.WAITING
         self._t = 0.0
         self._t0: float | None = None      # recording time of program sample 0
@@ -113,6 +117,7 @@ class BenchRun:
         self._cause: StopCause | None = None
         self._failure: str | None = None
         self._result: BenchResult | None = None
+        self._started = False
 
     # -- the loop thread's hook -------------------------------------------------------------------------------
 
@@ -190,6 +195,7 @@ class BenchRun:
 
     def start(self) -> None:
         """Wall clock: the loop thread runs the program; poll `progress`, then `close()`."""
+        self._started = True
         self.loop.start()
 
     def stop(self) -> None:
@@ -201,9 +207,11 @@ class BenchRun:
             self._fail("stopped before the program started")
 
     def close(self) -> BenchResult:
-        """Stop the loop, finish the recording and write the bench sidecar. Idempotent."""
+        """Bring the robot to rest if the program is still running, then stop the loop, finish the recording and
+        write the bench sidecar. Idempotent."""
         if self._result is not None:
             return self._result
+        self._come_to_rest()
         self.loop.close()
         self.recorder.close(self.loop.stats(), self.loop.link_stats())
         if self.loop.failure is not None and self._failure is None:
@@ -215,6 +223,20 @@ class BenchRun:
         if isinstance(self.loop.failure, LinkLost):
             raise self.loop.failure
         return self._result
+
+    def _come_to_rest(self) -> None:
+        """A run closed early still ends with a controlled stop carried out by the loop (not just requested)."""
+        if self._phase is Phase.DONE or self.loop.failure is not None:
+            return
+        self.stop()
+        if self.fast:
+            for _ in range(int(STOP_WAIT_S * self.profile.link.rate_hz)):
+                if not self.step(1):
+                    return
+        elif self._started:
+            deadline = time.monotonic() + STOP_WAIT_S
+            while self._phase is not Phase.DONE and time.monotonic() < deadline and self.loop.failure is None:
+                time.sleep(0.02)
 
     def _write_sidecar(self, side: Path, completed: bool) -> None:
         t0 = self._t0 if self._t0 is not None else 0.0

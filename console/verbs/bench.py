@@ -16,9 +16,9 @@ from types import FrameType
 from rich.console import Console
 from rich.progress import BarColumn, Progress, TextColumn, TimeRemainingColumn
 
-from console.bench.program import BUILTINS, resolve_program
-from console.bench.run import BenchResult, BenchRun
-from console.errors import DiffdeckError, InputError, LinkLost, RobotFault
+from console.bench.program import BUILTINS, BoundProgram, resolve_program
+from console.bench.run import STOP_WAIT_S, BenchResult, BenchRun
+from console.errors import InputError, LinkLost, RobotFault
 from console.loop import StopCause
 from console.profile import load_profile
 
@@ -28,8 +28,6 @@ ORDER = 60
 
 CONFIRMATION = "wheels up"
 EXIT_INTERRUPTED = 130
-STOP_WAIT_S = 30.0
-"""Longest a Ctrl-C waits for the controlled stop to finish before the run is closed anyway."""
 CAUTION = ("Bench test: the robot moves by itself. Wheels OFF THE GROUND (robot on a stand), a hardware emergency "
            "stop within reach. A software stop is not a safety function.")
 
@@ -41,6 +39,8 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--link", metavar="URL", help="override the profile's link: sim or a pyserial URL")
     parser.add_argument("--out", metavar="DIR", default="recordings", help="folder for the recording (default: "
                         "recordings)")
+    parser.add_argument("--screen", action="store_true", help="show the bench screen (progress, safety state, live "
+                        "plot); runs in real time, also on the simulated robot")
 
 
 class _Interrupts:
@@ -57,14 +57,14 @@ class _Interrupts:
         signal.signal(signal.SIGINT, self._previous)
 
 
-def _confirm(console: Console, run: BenchRun) -> None:
+def _confirm(console: Console, url: str) -> None:
     console.print(f"[bold]{CAUTION}[/]")
     console.print(f"Type [bold]{CONFIRMATION}[/] to confirm the wheels are off the ground and the hardware stop is "
                   "within reach:")
     answer = sys.stdin.readline()
     if answer.strip().lower() != CONFIRMATION:
         raise InputError("bench", "confirmation", answer.strip() or "(none)",
-                         f"type exactly {CONFIRMATION!r} to run on {run.url}")
+                         f"type exactly {CONFIRMATION!r} to run on {url}")
 
 
 def _outcome(result: BenchResult, interrupted: bool) -> int:
@@ -85,28 +85,29 @@ def run(args: argparse.Namespace) -> int:
     if out.exists() and not out.is_dir():
         raise InputError("command line", "--out", args.out, "a folder")
     console = Console(stderr=True)
-    bench = BenchRun(profile, program, out_dir=out, link_url=args.link)
+    url = args.link or profile.link.url
+    BoundProgram(program, profile.envelope)          # every level checked before anything is asked or opened
     if program.bypasses:
-        names = ", ".join(b.segment.name for b in bench.bound.segments if b.segment.bypass)
+        names = ", ".join(seg.name for seg in program.segments if seg.bypass)
         console.print(f"[bold yellow]Caution:[/] segments {names} run AROUND the shaper: no acceleration or jerk "
                       "limit, only the wheel-rate limit. The motors see raw steps.")
-        if not bench.bypass_available:
-            console.print("[yellow]This control loop has no raw wheel requests yet: those segments go through the "
-                          "shaper.[/]")
-    if not bench.fast:
-        try:
-            _confirm(console, bench)
-        except DiffdeckError:
-            bench.close()
-            bench.path.unlink(missing_ok=True)      # nothing ran: leave no empty recording behind
-            for side in (bench.path.with_name(bench.path.name + ".json"),
-                         bench.path.with_name(bench.path.name + ".bench.json")):
-                side.unlink(missing_ok=True)
-            raise
+    if url != "sim":
+        _confirm(console, url)
     else:
         console.print(CAUTION)
+    ui_timeout = None
+    if args.screen:
+        from console.ui.bench_screen import UI_TIMEOUT_S as ui_timeout
+    bench = BenchRun(profile, program, out_dir=out, link_url=url, fast=False if args.screen else None,
+                     ui_timeout_s=ui_timeout)
     console.print(f"bench: {program.name} ({bench.bound.duration_s:g} s) on {profile.name} over {bench.url}"
                   f"{' (virtual clock)' if bench.fast else ''}; recording to {bench.path}")
+    if args.screen:
+        from console.ui.bench_screen import run_bench_screen
+
+        code, result = run_bench_screen(bench)
+        console.print(f"bench: recording {result.recording} (+ {result.bench_sidecar.name})")
+        return _outcome(result, code != 0)
     interrupts = _Interrupts()
     try:
         with Progress(TextColumn("{task.description}"), BarColumn(), TextColumn("{task.fields[segment]}"),

@@ -1,0 +1,106 @@
+"""The bench screen: a test program running in real time with its progress, the safety state and a live plot.
+
+It drives a `BenchRun` (console/bench/run.py) and only reads its progress and the loop's snapshots; the panels are the
+drive console's own (console/ui/widgets.py) with its stylesheet, so both screens look and read alike. Space gives a
+controlled stop, x a fast stop, q stops and quits; the recording is kept in every case.
+"""
+
+from __future__ import annotations
+
+from typing import Any
+
+from textual.app import App, ComposeResult
+from textual.binding import Binding
+from textual.containers import Vertical
+from textual.widgets import ProgressBar, Static
+
+from console.bench.run import BenchResult, BenchRun
+from console.loop import StopCause
+from console.ui.widgets import EventLog, SafetyBanner, TracePlot
+from shaping.shaper import StopKind
+
+RENDER_HZ = 20.0
+UI_TIMEOUT_S = 0.5
+"""The loop brings the robot to a fast stop when the screen has not refreshed for this long (a stalled UI)."""
+
+
+class BenchApp(App[int]):
+    """Runs one BenchRun on the wall clock; returns 0 when the program ran to its end, 130 when it was stopped."""
+
+    CSS_PATH = "drive.tcss"
+    TITLE = "diffdeck bench"
+    ENABLE_COMMAND_PALETTE = False
+    BINDINGS = [
+        Binding("space", "stop('controlled')", "controlled stop", priority=True),
+        Binding("x", "stop('fast')", "fast stop", priority=True),
+        Binding("q,ctrl+c", "quit_bench", "stop and quit", priority=True),
+    ]
+
+    def __init__(self, run: BenchRun) -> None:
+        super().__init__()
+        self.run_ = run
+        self.result: BenchResult | None = None
+        self._events_seen = 0
+
+    def compose(self) -> ComposeResult:
+        env = self.run_.profile.envelope
+        with Vertical():
+            yield SafetyBanner(id="banner")
+            yield Static(id="program")
+            yield ProgressBar(total=self.run_.bound.duration_s, show_eta=True, id="progress")
+            yield TracePlot((-env.top_reverse_speed_mps, env.top_speed_mps), env.top_turn_rate_radps, span_s=10.0,
+                            id="plot")
+            yield EventLog(id="events")
+            yield Static("space: controlled stop   x: fast stop   q: stop and quit  |  a software stop is not a "
+                         "safety function: keep the hardware stop within reach", id="keys")
+
+    def on_mount(self) -> None:
+        self.run_.start()
+        self.set_interval(1.0 / RENDER_HZ, self.tick)
+
+    def tick(self) -> None:
+        run = self.run_
+        run.loop.ui_alive()
+        snap = run.snapshot()
+        progress = run.progress
+        state = snap.state.value
+        detail = {"armed": "the program is driving the motors", "stopping": "coming to rest",
+                  "stopped": "at rest: the recording is kept", "disarmed": progress.phase.value}[state]
+        self.query_one(SafetyBanner).show(state, snap.cause.value if snap.cause else None, detail)
+        self.query_one("#program", Static).update(
+            f"{run.program.name}: segment {progress.segment_index + 1}/{progress.segment_count} "
+            f"{progress.segment_name}   {progress.t_s:5.1f} / {progress.duration_s:g} s   -> {run.path}")
+        self.query_one(ProgressBar).update(progress=progress.t_s)
+        shaped = snap.shaped
+        nan = float("nan")
+        v_meas = w_meas = nan
+        if snap.left_meas_radps is not None and snap.right_meas_radps is not None:
+            v_meas, w_meas = run.profile.geometry.to_body(snap.left_meas_radps, snap.right_meas_radps)
+        self.query_one(TracePlot).add(snap.t_s, shaped.v_req_mps, shaped.v_mps, v_meas, shaped.omega_req_radps,
+                                      shaped.omega_radps, w_meas)
+        self.query_one(EventLog).add_loop(snap.events)
+        if progress.done and self.result is None:
+            self.result = run.close()
+            self.query_one(EventLog).add_note(snap.t_s, f"program {progress.phase.value}; recording {run.path}; "
+                                                        "press q to quit")
+
+    def action_stop(self, kind: str) -> None:
+        self.run_.loop.stop(StopKind(kind), StopCause.OPERATOR)
+
+    def action_quit_bench(self) -> None:
+        if not self.run_.progress.done:
+            self.run_.stop()
+            return                           # quit once at rest (the next q), so the stop is seen on screen
+        self.exit(0 if self.result is not None and self.result.completed else 130)
+
+    def finish(self) -> BenchResult:
+        """After the app has exited: the run's result (closing it if the app did not get to)."""
+        return self.result if self.result is not None else self.run_.close()
+
+
+def run_bench_screen(run: BenchRun) -> tuple[int, BenchResult]:
+    """Show the bench screen until the operator quits; the exit code and the run's result."""
+    app = BenchApp(run)
+    code: Any = app.run()
+    return int(code if code is not None else 130), app.finish()   # finish() stops the robot first if needed
+
