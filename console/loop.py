@@ -7,6 +7,7 @@ a deadline already passed is skipped and counted as a missed period instead.
 
 Clocks: `WallClock` (perf_counter; sleeps to shortly before the deadline, then spins for sub-millisecond precision) and
 `VirtualClock` (time moves only when the loop sleeps, so a run is deterministic and as fast as the CPU allows).
+The safety states, stop kinds and causes are described in docs/control-loop.md.
 """
 
 from __future__ import annotations
@@ -32,6 +33,8 @@ from shaping.shaper import Shaped, Shaper, StopKind
 
 if TYPE_CHECKING:
     from console.profile import LinkConfig, Profile
+    from console.record import Recorder
+    from console.sim.firmware import SimRobot
     from console.transport import Transport
 
 
@@ -287,8 +290,8 @@ class ControlLoop:
     reference assignment, so a reader never sees half a cycle).
     """
 
-    def __init__(self, profile: Profile, transport: Transport, clock: Clock, *, sim: Any | None = None,
-                 recorder: Any | None = None, operator_timeout_s: float | None = None,
+    def __init__(self, profile: Profile, transport: Transport, clock: Clock, *, sim: SimRobot | None = None,
+                 recorder: Recorder | None = None, operator_timeout_s: float | None = None,
                  ui_timeout_s: float | None = None, url: str | None = None,
                  on_cycle: Callable[[float], None] | None = None) -> None:
         self.profile = profile
