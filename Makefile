@@ -13,7 +13,7 @@ $(STAMP): pyproject.toml
 	touch $(STAMP)
 
 run: $(STAMP)
-	$(VENV)/bin/diffdeck profile check $(DEMO)
+	$(VENV)/bin/diffdeck drive $(DEMO)
 
 test: $(STAMP)
 	$(PY) -m pytest -q
