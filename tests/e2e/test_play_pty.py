@@ -126,9 +126,9 @@ def test_sigkill_of_the_player_leaves_the_robot_stopped_within_watchdog_plus_sto
     fastest = float(numpy.nanmax(numpy.abs(numpy.r_[rec["left_meas_radps"], rec["right_meas_radps"]])))
     sim_cfg = profile.sim
     # Watchdog time, then the firmware's ramp to zero at the torque limit, then the motor's lag (dead time plus five
-    # time constants leave under 1 % of the rate, exp(-5) = 0.7 %), plus 0.1 s for process scheduling.
+    # time constants leave under 1 % of the rate, exp(-5) = 0.7 %), plus 0.2 s for process scheduling on a busy host.
     allowed = (profile.link.watchdog_s + fastest / sim_cfg.wheel_accel_radps2 + sim_cfg.motor_dead_time_s
-               + 5 * sim_cfg.motor_time_constant_s + 0.1)
+               + 5 * sim_cfg.motor_time_constant_s + 0.2)
     assert opened_at - killed_at < allowed           # we were listening before the robot had to be stopped
     assert seen, "no telemetry from the simulated robot after the kill"
     still = 4 * sim_cfg.noise_radps + 0.05
