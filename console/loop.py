@@ -19,7 +19,7 @@ import sys
 import threading
 import time
 from collections import deque
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from collections.abc import Callable
 from typing import TYPE_CHECKING, Any, Protocol
 
@@ -429,8 +429,10 @@ class ControlLoop:
                 self._cycle(self._scheduler.wait())
         except BaseException as error:   # a bug must not leave the robot running on stale commands
             self.failure = error
-            self._log(self._snapshot.t_s, f"control loop failed: {error!r}; stop frame sent", "safety")
             self._emergency_stop_frame()
+            self._log(self._snapshot.t_s, f"control loop failed: {error!r}; stop frame sent", "safety")
+            self._snapshot = replace(self._snapshot, state=SafetyState.STOPPED, cause=StopCause.FAULT,
+                                     events=self._events_tuple)
 
     def run_cycles(self, n: int) -> None:
         """Run n cycles in the calling thread (virtual clock, tests, headless fast runs)."""

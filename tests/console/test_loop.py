@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import dataclasses
 import math
+import time
 from pathlib import Path
 
 import numpy
@@ -462,3 +463,31 @@ def test_wheel_rates_around_the_shaper_then_hand_back_and_stops_ramp_down() -> N
     stops = [f.category for f in rig.tap.sent if type(f) is StopCommand]
     assert stops and set(stops) == {CATEGORY[StopKind.FAST]}
     assert rig.loop.snapshot().shaped.v_mps == 0.0
+
+
+def test_a_failing_cycle_on_the_thread_sends_a_stop_frame_and_reports_the_failure() -> None:
+    """A bug inside a cycle must not leave the robot on its last command: the thread sends a stop frame and keeps the
+    exception for the caller."""
+
+    class Broken(Tap):
+        def read(self) -> bytes:
+            if len(self.sent) >= 30:
+                raise RuntimeError("a bug in the codec")
+            return super().read()
+
+    profile = load_profile(WREN)
+    clock = WallClock()
+    console_end, robot_end = memory_pair()
+    tap = Broken(console_end, clock)
+    loop = ControlLoop(profile, tap, clock, sim=SimRobot(profile, robot_end))
+    loop.start(realtime=False)
+    loop.arm()
+    loop.request(0.5, 0.0)
+    deadline = time.monotonic() + 30.0
+    while loop.failure is None and time.monotonic() < deadline:
+        time.sleep(0.01)
+    loop.close()
+    assert isinstance(loop.failure, RuntimeError)
+    assert type(tap.sent[-1]) is StopCommand
+    assert "control loop failed" in loop.snapshot().events[-1].text
+    assert loop.snapshot().state is SafetyState.STOPPED
