@@ -81,28 +81,32 @@ def _json(path: Path) -> dict[str, Any] | None:
 def read_recording(path: str | Path) -> Recording:
     path = Path(path)
     try:
-        text = path.read_text(encoding="utf-8")
-    except (OSError, UnicodeDecodeError) as error:
-        raise _fail(path, "file", str(path), f"a readable UTF-8 CSV recording ({error.__class__.__name__})")
-    header, _, body = text.partition("\n")
-    columns = header.strip().split(",")
+        raw = path.read_bytes()
+    except OSError as error:
+        raise _fail(path, "file", str(path), f"a readable CSV recording ({error.__class__.__name__})")
+    head, _, body = raw.partition(b"\n")
+    del raw
+    header = head.decode("utf-8", "replace").strip()
+    columns = header.split(",")
     if tuple(columns[: len(COLUMNS)]) != COLUMNS:
-        raise _fail(path, "header", header.strip()[:80], "a diffdeck recording header beginning " + ",".join(COLUMNS))
+        raise _fail(path, "header", header[:80], "a diffdeck recording header beginning " + ",".join(COLUMNS))
     pose = tuple(columns[len(COLUMNS):len(COLUMNS) + 3]) == POSE_COLUMNS
     names = NUMERIC + (POSE_COLUMNS if pose else ())
     usecols = [columns.index(name) for name in names]
+    # Bytes, not str: numpy's reader takes them as they are (a str copy would cost 4 bytes per character).
     # Empty fields (no measurement yet) become nan; two passes cover runs of empty fields.
-    body = body.replace(",,", ",nan,").replace(",,", ",nan,").replace(",\n", ",nan\n")
-    if body.endswith(","):
-        body += "nan"
+    body = body.replace(b",,", b",nan,").replace(b",,", b",nan,").replace(b",\n", b",nan\n")
+    if body.endswith(b","):
+        body += b"nan"
     try:
-        table = np.loadtxt(io.StringIO(body), delimiter=",", usecols=usecols, ndmin=2, dtype=float)
+        table = np.loadtxt(io.BytesIO(body), delimiter=",", usecols=usecols, ndmin=2, dtype=float)
     except ValueError as error:
         match = _ROW_RE.search(str(error))
         # numpy counts rows from 0 in conversion errors and from 1 in column-count errors; line 1 is the header
         line = int(match.group(1)) + (2 if "convert" in str(error) else 1) if match else "?"
         raise _fail(path, f"line {line}", str(error).split(" at row")[0][:80],
                     f"{len(columns)} comma-separated fields per row, numbers in {', '.join(names)}")
+    del body
     if table.shape[0] < MIN_ROWS:
         raise _fail(path, "rows", table.shape[0], f"at least {MIN_ROWS} data rows")
     data = {name: table[:, i].copy() for i, name in enumerate(names)}
