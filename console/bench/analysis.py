@@ -256,19 +256,20 @@ class SuggestedLimits:
     turn_jerk_radps3: float
     from_wheel: str
 
-    def snippet(self, source: str) -> str:
-        return (
-            f"# suggested by `diffdeck report` from {source}: speed tracking error <= {self.speed_error_mps:.3g} m/s,\n"
-            f"# acceleration trailing by <= {ACCEL_ERROR_SHARE:.0%} (FOPDT fit of the {self.from_wheel} wheel, "
-            f"the slower one)\n"
-            "[limits]\n"
-            f"accel_mps2 = {self.accel_mps2:.3g}\n"
-            f"decel_mps2 = {self.accel_mps2:.3g}\n"
-            f"jerk_mps3 = {self.jerk_mps3:.3g}\n"
-            f"turn_accel_radps2 = {self.turn_accel_radps2:.3g}\n"
-            f"turn_jerk_radps3 = {self.turn_jerk_radps3:.3g}\n"
-            f"wheel_accel_radps2 = {self.wheel_accel_radps2:.3g}\n"
-        )
+    def snippet(self, source: str, current: dict[str, object] | None = None) -> str:
+        """A [limits] table to paste; `current` (the profile's [limits]) adds what each key is now."""
+        current = current or {}
+        values = {"accel_mps2": self.accel_mps2, "decel_mps2": self.accel_mps2, "jerk_mps3": self.jerk_mps3,
+                  "turn_accel_radps2": self.turn_accel_radps2, "turn_jerk_radps3": self.turn_jerk_radps3,
+                  "wheel_accel_radps2": self.wheel_accel_radps2}
+        lines = [f"# suggested by `diffdeck report` from {source}: speed tracking error <= "
+                 f"{self.speed_error_mps:.3g} m/s,",
+                 f"# acceleration trailing by <= {ACCEL_ERROR_SHARE:.0%} (FOPDT fit of the {self.from_wheel} wheel, "
+                 "the slower one)", "[limits]"]
+        for key, value in values.items():
+            now = current.get(key)
+            lines.append(f"{key} = {value:.3g}" + (f"    # now {now}" if now is not None else ""))
+        return "\n".join(lines) + "\n"
 
 
 def suggest_limits(fits: dict[str, FopdtFit], wheel_radius_m: float, track_width_m: float,

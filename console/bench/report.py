@@ -20,6 +20,7 @@ from console.bench import analysis
 from console.bench.analysis import FopdtFit, StepMetrics, SuggestedLimits
 from console.bench.polarity import PolarityReport, check_polarity
 from console.bench.recording import Recording, Segment
+from console.record import sidecar_path
 
 DEFAULT_SPEED_ERROR_SHARE = 0.05    # stated tracking error for the suggested limits: 5 % of the top speed
 DEFAULT_SPEED_ERROR_MPS = 0.05      # when the top speed is unknown (no bench sidecar)
@@ -60,6 +61,10 @@ class Report:
     limits: SuggestedLimits | None
     polarity: PolarityReport | None
     notes: tuple[str, ...]
+    profile_limits: dict[str, object]    # the [limits] of the profile the recording was made with (if known)
+
+    def limits_snippet(self) -> str | None:
+        return self.limits.snippet(Path(self.recording).name, self.profile_limits) if self.limits else None
 
     def to_json(self) -> dict[str, Any]:
         def plain(value: Any) -> Any:
@@ -77,7 +82,7 @@ class Report:
             return value
 
         data = plain(self)
-        data["limits_snippet"] = self.limits.snippet(Path(self.recording).name) if self.limits else None
+        data["limits_snippet"] = self.limits_snippet()
         data["polarity_snippet"] = self.polarity.snippet() if self.polarity else None
         return data
 
@@ -207,21 +212,17 @@ def analyze(rec: Recording, speed_error_mps: float | None = None) -> Report:
             speed_error_mps = (DEFAULT_SPEED_ERROR_SHARE * rec.top_speed_mps if rec.top_speed_mps
                                else DEFAULT_SPEED_ERROR_MPS)
         limits = analysis.suggest_limits(fits, rec.wheel_radius_m, rec.track_width_m, speed_error_mps)
-    units = None
-    if rec.bench is not None:
-        units = _profile_units(rec)
-    polarity = check_polarity(rec, units)
+    polarity = check_polarity(rec, _profile_table(rec, "units"))
     return Report(str(rec.path), rec.program, float(rec.t[-1] - rec.t[0]), int(rec.t.size), segments, fits,
-                  limits, polarity, tuple(notes))
+                  limits, polarity, tuple(notes), _profile_table(rec, "limits"))
 
 
-def _profile_units(rec: Recording) -> dict[str, object]:
-    from console.record import sidecar_path
-
+def _profile_table(rec: Recording, name: str) -> dict[str, object]:
+    """A table of the profile the recording was made with, from the recorder's sidecar ({} when unknown)."""
     try:
         meta = json.loads(sidecar_path(rec.path).read_text(encoding="utf-8"))
-        return dict(((meta.get("profile") or {}).get("data") or {}).get("units") or {})
-    except (OSError, ValueError):
+        return dict(((meta.get("profile") or {}).get("data") or {}).get(name) or {})
+    except (OSError, ValueError, AttributeError):
         return {}
 
 
@@ -351,7 +352,7 @@ def markdown(report: Report) -> str:
             lines.append(f"| {wheel} | {fit.gain:.3f} | {fit.tau_s:.4f} | {fit.dead_time_s:.4f} | {fit.r2:.4f} | "
                          f"{fit.nrmse:.4f} |")
     if report.limits is not None:
-        lines += ["", "## Suggested limits", "", "```toml", report.limits.snippet(name).rstrip(), "```"]
+        lines += ["", "## Suggested limits", "", "```toml", report.limits_snippet().rstrip(), "```"]
     if report.polarity is not None:
         lines += ["", "## Polarity and encoder check", ""]
         lines += [f"- **{f.kind}**: {f.text}" for f in report.polarity.findings]

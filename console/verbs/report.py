@@ -58,7 +58,7 @@ def run(args: argparse.Namespace) -> int:
             console.print(f"{wheel} wheel: gain {fit.gain:.3f}, time constant {fit.tau_s * 1e3:.1f} ms, dead time "
                           f"{fit.dead_time_s * 1e3:.1f} ms (R^2 {fit.r2:.4f}, NRMSE {fit.nrmse:.4f})")
     if report.limits is not None:
-        console.print(report.limits.snippet(Path(args.recording).name), markup=False, highlight=False)
+        console.print(report.limits_snippet(), markup=False, highlight=False)
     if report.polarity is not None:
         for finding in report.polarity.findings:
             console.print(f"polarity: {finding.kind}: {finding.text}", markup=False)
