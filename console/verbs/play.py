@@ -109,7 +109,6 @@ class _Run:
 
     def __init__(self, loop: ControlLoop, fast: bool, interrupts: _Interrupts) -> None:
         self.loop, self.fast, self.interrupts = loop, fast, interrupts
-        self.cycles_per_poll = max(1, round(POLL_S * loop.profile.link.rate_hz))
 
     def wait(self, seconds: float) -> None:
         if self.fast:
@@ -169,7 +168,11 @@ def run(args: argparse.Namespace) -> int:
     else:
         transport = open_url(url, profile.link.baud)
     record = Path(args.record) if args.record else default_path(profile)
-    recorder = Recorder(record, profile, url)
+    try:
+        recorder = Recorder(record, profile, url)
+    except OSError as error:
+        transport.close()
+        raise InputError("command line", "--record", str(record), f"cannot be written ({error.strerror})") from None
     player = _Player(requests)
     loop = ControlLoop(profile, transport, VirtualClock() if args.fast else WallClock(), sim=sim,
                        recorder=recorder, url=url, on_cycle=player.on_cycle)
