@@ -238,13 +238,38 @@ def derivative(t: np.ndarray, y: np.ndarray, order: int) -> np.ndarray:
 ACCEL_ERROR_SHARE = 0.25   # the acceleration may trail the command by at most 25 % of the suggested acceleration
 
 
+RAMP_SHARE = 0.5           # ramp rows: the command accelerates at more than half its peak acceleration
+MIN_RAMP_ROWS = 20
+
+
+def ramp_lag(t: np.ndarray, command: np.ndarray, measured: np.ndarray, rows: np.ndarray | None = None) -> float | None:
+    """How long the measurement trails the command while it ramps: median of (command - measured) / acceleration.
+
+    Measured directly on the recording's ramps (rows where the command accelerates hard), so it includes what a
+    model fit leaves out (telemetry sampling, link latency, the deadband's catch-up). `rows` selects the usable rows
+    (e.g. not around the shaper, where steps would count as infinite accelerations). None: too few ramp rows.
+    """
+    accel = derivative(t, command, 1)
+    usable = np.isfinite(accel) & np.isfinite(measured) & (True if rows is None else rows)
+    if not np.any(usable):
+        return None
+    peak = float(np.max(np.abs(accel[usable])))
+    ramp = usable & (np.abs(accel) > RAMP_SHARE * peak)
+    if peak <= 0.0 or np.count_nonzero(ramp) < MIN_RAMP_ROWS:
+        return None
+    lag = float(np.median((command[ramp] - measured[ramp]) / accel[ramp]))
+    return lag if lag > 0.0 else None
+
+
 @dataclass(frozen=True, slots=True)
 class SuggestedLimits:
-    """Limits a FOPDT wheel follows within a stated tracking error.
+    """Limits a wheel follows within a stated tracking error.
 
     A first-order lag with dead time trails a ramp of slope a by a * (tau + dead) once the transient has passed
     (the unit-ramp response of a first-order system, Ogata, Modern Control Engineering, 5th ed., 2010, section on
-    first-order systems, from memory); its acceleration obeys the same equation, so it trails a jerk j by j * (tau + dead).
+    first-order systems, from memory); its acceleration obeys the same equation, so it trails a jerk j by
+    j * (tau + dead). The lag used is the one measured on the recording's ramps when there are enough of them
+    (`ramp_lag`), else tau + dead time of the FOPDT fit; the slower wheel decides.
     """
 
     speed_error_mps: float
@@ -255,33 +280,42 @@ class SuggestedLimits:
     turn_accel_radps2: float
     turn_jerk_radps3: float
     from_wheel: str
+    lag_s: float
+    lag_source: str           # "ramps" (measured) or "fit"
 
     def snippet(self, source: str, current: dict[str, object] | None = None) -> str:
         """A [limits] table to paste; `current` (the profile's [limits]) adds what each key is now."""
         current = current or {}
         values = {"accel_mps2": self.accel_mps2, "decel_mps2": self.accel_mps2, "jerk_mps3": self.jerk_mps3,
-                  "turn_accel_radps2": self.turn_accel_radps2, "turn_jerk_radps3": self.turn_jerk_radps3,
-                  "wheel_accel_radps2": self.wheel_accel_radps2}
+                  "turn_accel_radps2": self.turn_accel_radps2, "turn_jerk_radps3": self.turn_jerk_radps3}
+        # not wheel_accel_radps2: that key caps every wheel acceleration, the fast stop's too
+        how = "measured on the recording's ramps" if self.lag_source == "ramps" else "tau + dead time of its fit"
         lines = [f"# suggested by `diffdeck report` from {source}: speed tracking error <= "
                  f"{self.speed_error_mps:.3g} m/s,",
-                 f"# acceleration trailing by <= {ACCEL_ERROR_SHARE:.0%} (FOPDT fit of the {self.from_wheel} wheel, "
-                 "the slower one)", "[limits]"]
+                 f"# acceleration trailing by <= {ACCEL_ERROR_SHARE:.0%}; the {self.from_wheel} wheel trails by "
+                 f"{self.lag_s * 1e3:.0f} ms ({how})", "[limits]"]
         for key, value in values.items():
             now = current.get(key)
             lines.append(f"{key} = {value:.3g}" + (f"    # now {now}" if now is not None else ""))
         return "\n".join(lines) + "\n"
 
 
-def suggest_limits(fits: dict[str, FopdtFit], wheel_radius_m: float, track_width_m: float,
-                   speed_error_mps: float) -> SuggestedLimits | None:
-    """From the slower wheel's fit: the acceleration and jerk it follows within `speed_error_mps`."""
-    usable = {name: fit for name, fit in fits.items() if fit is not None and fit.lag_s > 0}
-    if not usable:
+def suggest_limits(fits: dict[str, FopdtFit | None], wheel_radius_m: float, track_width_m: float,
+                   speed_error_mps: float, ramp_lags: dict[str, float | None] | None = None) -> SuggestedLimits | None:
+    """From the slower wheel: the acceleration and jerk it follows within `speed_error_mps`."""
+    ramp_lags = ramp_lags or {}
+    lags: dict[str, tuple[float, str]] = {}
+    for name, fit in fits.items():
+        if ramp_lags.get(name):
+            lags[name] = (float(ramp_lags[name]), "ramps")
+        elif fit is not None and fit.lag_s > 0:
+            lags[name] = (fit.lag_s, "fit")
+    if not lags:
         return None
-    name, fit = max(usable.items(), key=lambda item: item[1].lag_s)
+    name, (lag, source) = max(lags.items(), key=lambda item: item[1][0])
     wheel_error = speed_error_mps / wheel_radius_m
-    accel = wheel_error / fit.lag_s
-    jerk = ACCEL_ERROR_SHARE * accel / fit.lag_s
+    accel = wheel_error / lag
+    jerk = ACCEL_ERROR_SHARE * accel / lag
     spin = 2.0 * wheel_radius_m / track_width_m
     return SuggestedLimits(speed_error_mps, accel, jerk, wheel_radius_m * accel, wheel_radius_m * jerk,
-                           spin * accel, spin * jerk, name)
+                           spin * accel, spin * jerk, name, lag, source)

@@ -211,7 +211,13 @@ def analyze(rec: Recording, speed_error_mps: float | None = None) -> Report:
         if speed_error_mps is None:
             speed_error_mps = (DEFAULT_SPEED_ERROR_SHARE * rec.top_speed_mps if rec.top_speed_mps
                                else DEFAULT_SPEED_ERROR_MPS)
-        limits = analysis.suggest_limits(fits, rec.wheel_radius_m, rec.track_width_m, speed_error_mps)
+        shaped = np.ones(rec.t.size, dtype=bool)
+        for seg in rec.segments:
+            if seg.bypass:
+                shaped &= ~((rec.t >= seg.t_start_s) & (rec.t < seg.t_end_s + 0.5))   # + the hand-back ramp
+        lags = {w: analysis.ramp_lag(rec.t, rec.data[f"{w}_cmd_radps"], rec.data[f"{w}_meas_radps"], shaped)
+                for w in ("left", "right")}
+        limits = analysis.suggest_limits(fits, rec.wheel_radius_m, rec.track_width_m, speed_error_mps, lags)
     polarity = check_polarity(rec, _profile_table(rec, "units"))
     return Report(str(rec.path), rec.program, float(rec.t[-1] - rec.t[0]), int(rec.t.size), segments, fits,
                   limits, polarity, tuple(notes), _profile_table(rec, "limits"))

@@ -10,6 +10,7 @@ from __future__ import annotations
 import json
 from pathlib import Path
 
+import numpy as np
 import pytest
 
 from console.bench.program import builtin, load_program
@@ -129,3 +130,32 @@ def test_segments_around_the_shaper_send_raw_steps_and_identify_the_motor(tmp_pa
     # the sim's torque limit (45 rad/s^2) slows the start of a raw 4 rad/s step a little: still within 15 %
     for wheel in ("left", "right"):
         assert report.fits[wheel].tau_s == pytest.approx(profile.sim.motor_time_constant_s, rel=0.15)
+
+
+def _speed_error_p95(rec) -> float:
+    d = rec.data
+    measured = 0.5 * rec.wheel_radius_m * (d["left_meas_radps"] + d["right_meas_radps"])
+    moving = rec.t < rec.segments[2].t_start_s          # the speed steps of the built-in `step`
+    return float(np.nanpercentile(np.abs(d["v_mps"] - measured)[moving], 95))
+
+
+def test_suggested_limits_keep_the_stated_tracking_error_on_a_second_run(tmp_path: Path) -> None:
+    profile = load_profile(WREN)
+    first = BenchRun(profile, builtin("step"), out_dir=tmp_path).run_to_end()
+    limits = analyze(read_recording(first.recording)).limits
+    assert limits.lag_source == "ramps"
+    # the lag a first-order wheel model predicts: tau + dead time, plus about half a telemetry period of sampling
+    assert limits.lag_s == pytest.approx(profile.sim.motor_time_constant_s + profile.sim.motor_dead_time_s
+                                         + 0.5 / profile.sim.telemetry_rate_hz, rel=0.25)
+    results = {}
+    for factor in (1.0, 1.6):
+        accel, jerk = factor * limits.accel_mps2, factor * limits.jerk_mps3
+        changes = {("limits", "accel_mps2"): accel, ("limits", "decel_mps2"): accel, ("limits", "jerk_mps3"): jerk,
+                   ("limits", "stop_decel_mps2"): max(profile.limits.stop_decel_mps2, 1.5 * accel),
+                   ("limits", "stop_jerk_mps3"): max(profile.limits.stop_jerk_mps3, 1.5 * jerk)}
+        again = BenchRun(_profile(tmp_path, changes, f"x{factor}.toml"), builtin("step"),
+                         out_dir=tmp_path / str(factor)).run_to_end()
+        results[factor] = _speed_error_p95(read_recording(again.recording))
+    # within the stated error, allowing 10 % for the 50 Hz telemetry's sample-and-hold; faster ramps break it
+    assert results[1.0] <= 1.1 * limits.speed_error_mps
+    assert results[1.6] > 1.2 * limits.speed_error_mps
