@@ -201,8 +201,6 @@ def analyze(rec: Recording, speed_error_mps: float | None = None) -> Report:
         notes.append("no geometry in the sidecars: speed and turn-rate metrics and suggested limits are left out")
     if rec.bench is None:
         notes.append("no bench sidecar (<csv>.bench.json): the whole recording is one segment")
-    elif rec.bench.get("bypass_through_shaper"):
-        notes.append("the loop had no raw wheel requests: segments marked around the shaper ran through it")
     segments = tuple(_segment_report(sig, seg) for seg in rec.segments)
     fits = {w: analysis.fit_fopdt(rec.t, rec.data[f"{w}_cmd_radps"], rec.data[f"{w}_meas_radps"])
             for w in ("left", "right")}

@@ -95,7 +95,6 @@ class BenchRun:
         self.bound = BoundProgram(program, profile.envelope)       # raises ProgramError before anything opens
         self.period_s = 1.0 / profile.link.rate_hz
         self.samples = self.bound.sample(self.period_s)
-        self.bypass_available = hasattr(ControlLoop, "request_wheels")
         self.sim: Any = None
         if on_sim:
             from console.sim.firmware import SimRobot
@@ -153,11 +152,9 @@ class BenchRun:
             self._k = k
             first, second = float(samples.first[k]), float(samples.second[k])
             if samples.wheels[k]:
-                if self.bypass_available:
-                    self.loop.request_wheels(first, second)
-                    return
-                first, second = self.profile.geometry.to_body(first, second)
-            self.loop.request(first, second)
+                self.loop.request_wheels(first, second)      # around the shaper (the program said so)
+            else:
+                self.loop.request(first, second)
             return
         if self._phase is Phase.ENDING and snap.state in (SafetyState.STOPPED, SafetyState.DISARMED):
             self._cause = self._cause or snap.cause
@@ -257,7 +254,6 @@ class BenchRun:
             "completed": completed,
             "cause": None if self._cause is None else self._cause.value,
             "failure": self._failure,
-            "bypass_through_shaper": self.program.bypasses and not self.bypass_available,
             "segments": [
                 {"index": b.segment.index, "name": b.segment.name, "kind": b.segment.kind.value,
                  "axis": b.segment.axis.value, "bypass": b.segment.bypass,
