@@ -114,6 +114,10 @@ def read_recording(path: str | Path) -> Recording:
     bad = np.flatnonzero(~np.isfinite(t) | (np.diff(t, prepend=-np.inf) <= 0.0))
     if bad.size:
         raise _fail(path, f"line {int(bad[0]) + 2} t_s", t[bad[0]], "finite times, strictly increasing")
+    for name in ("left_meas_radps", "right_meas_radps"):
+        if np.count_nonzero(np.isfinite(data[name])) < MIN_ROWS:
+            raise _fail(path, name, "empty", f"measured wheel rates in at least {MIN_ROWS} rows (the robot sent no "
+                                             "telemetry?)")
     bench = _json(bench_sidecar_path(path))
     meta = _json(sidecar_path(path)) or {}
     radius = track = top = None

@@ -20,8 +20,9 @@ WREN = ROOT / "profiles" / "wren.toml"
 HEADER = ",".join(COLUMNS)
 
 
-def _rows(n: int, start: float = 0.01) -> str:
-    return "".join(f"{start + k * 0.01:.2f},0,0,0,0,0,0,,,disarmed\n" for k in range(n))
+def _rows(n: int, start: float = 0.01, empty: bool = False) -> str:
+    return "".join(f"{start + k * 0.01:.2f},0,0,0,0,0,0,{'' if empty else 0},{'' if empty else 0},disarmed\n"
+                   for k in range(n))
 
 
 BAD = [
@@ -32,6 +33,7 @@ BAD = [
     (HEADER + "\n" + _rows(30) + "0.40,0,zero,0,0,0,0,,,armed\n", "line 32", "numbers in t_s"),
     (HEADER + "\n" + _rows(30) + "0.40,0,0\n", "line 32", "fields per row"),
     (HEADER + "\n" + _rows(30) + _rows(5, start=0.05), "line 32 t_s", "strictly increasing"),
+    (HEADER + "\n" + _rows(30, empty=True), "left_meas_radps", "measured wheel rates"),
 ]
 
 
