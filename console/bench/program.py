@@ -39,10 +39,6 @@ class Axis(enum.Enum):
         return self in (Axis.LEFT, Axis.RIGHT)
 
     @property
-    def unit(self) -> str:
-        return "m/s" if self is Axis.SPEED else "rad/s"
-
-    @property
     def partner(self) -> Axis:
         """The other axis of the same pair (a segment may hold it at a constant with `with`)."""
         return {Axis.SPEED: Axis.TURN, Axis.TURN: Axis.SPEED, Axis.LEFT: Axis.RIGHT, Axis.RIGHT: Axis.LEFT}[self]
@@ -73,9 +69,6 @@ class Level:
         else:
             top = envelope.limits.wheel_rate_radps
         return self.value / 100.0 * top
-
-    def __str__(self) -> str:
-        return f"{self.value:g}%" if self.percent else f"{self.value:g}"
 
 
 ZERO = Level(0.0)
