@@ -25,6 +25,9 @@ if TYPE_CHECKING:
     from console.profile import Profile
 
 
+AGE_STEP_MS = 20
+
+
 def signed(value: float | None, digits: int = 2) -> str:
     return "—" if value is None or not math.isfinite(value) else f"{value:+.{digits}f}"
 
@@ -115,14 +118,14 @@ class TitleBar(Panel):
     """One line: program, profile, link, driving mode, nudge steps, loop time."""
 
     def show(self, profile_name: str, url: str, mode: str, steps: str, t_s: float) -> None:
-        self._update((profile_name, url, mode, steps, round(t_s, 1)))
+        self._update((profile_name, url, mode, steps, int(t_s)))
 
     def paint(self, width: int, height: int) -> Rows:
         if self._shown is None:
             return Rows()
         name, url, mode, steps, t_s = self._shown
         return (Rows().append(" diffdeck drive ", "bold reverse").append("  ").append(f"{mode.upper()} mode", "bold")
-                .append(f"  ·  link {url}  ·  t {t_s:.1f} s  ·  steps {steps}  ·  {name}"))
+                .append(f"  ·  link {url}  ·  t {t_s} s  ·  steps {steps}  ·  {name}"))
 
 
 class HintBar(Panel):
@@ -149,8 +152,10 @@ class LinkPanel(Panel):
 
     def show(self, snap: Snapshot, rate_set_hz: float) -> None:
         link, loop = snap.link, snap.loop
-        age = None if link.telemetry_age_s is None else round(link.telemetry_age_s * 1000.0)
-        rtt = None if link.rtt_s is None else round(link.rtt_s * 1000.0, 1)
+        # shown in coarse steps: the exact jitter of a healthy link is noise, and every change costs a repaint
+        age = None if link.telemetry_age_s is None else AGE_STEP_MS * max(1, math.ceil(
+            link.telemetry_age_s * 1000.0 / AGE_STEP_MS))
+        rtt = None if link.rtt_s is None else round(link.rtt_s * 1000.0)
         self._update((
             link.url, round(link.rate_hz, 1), rate_set_hz, rtt, age, link.crc_errors, link.overlong_lines,
             link.unknown_frames, link.frames_sent, link.telemetry_received,
@@ -167,8 +172,8 @@ class LinkPanel(Panel):
         rows = [
             ("url", url),
             ("rate", f"{rate:.1f} of {rate_set:g} Hz"),
-            ("telemetry", "none yet" if age is None else f"{age} ms ago"),
-            ("round trip", "—" if rtt is None else f"{rtt:.1f} ms"),
+            ("telemetry", "none yet" if age is None else f"≤ {age} ms ago"),
+            ("round trip", "—" if rtt is None else f"{rtt} ms"),
             ("errors", f"crc {crc} long {overlong} unk {unknown}"),
             ("loop late", f"p99 {p99:.2f} max {pmax:.2f} ms"),
             ("missed", f"{overruns} periods"),
@@ -199,7 +204,7 @@ class AxisGauge(Panel):
     def show(self, req: float, target: float, out: float, meas: float | None, bound_lo: float,
              bound_hi: float) -> None:
         d = self.digits
-        self._update((round(req, d), round(target, d), round(out, d + 1), None if meas is None else round(meas, d + 1),
+        self._update((round(req, d), round(target, d), round(out, d), None if meas is None else round(meas, d),
                       round(bound_lo, d), round(bound_hi, d)))
 
     def paint(self, width: int, height: int) -> Rows:
@@ -285,8 +290,8 @@ class WheelPanel(Panel):
         s = snap.shaped
         self._update((
             round(s.left_radps, 2), round(s.right_radps, 2), round(snap.left_cmd, 1), round(snap.right_cmd, 1),
-            None if snap.left_meas_radps is None else round(snap.left_meas_radps, 2),
-            None if snap.right_meas_radps is None else round(snap.right_meas_radps, 2),
+            None if snap.left_meas_radps is None else round(snap.left_meas_radps, 1),
+            None if snap.right_meas_radps is None else round(snap.right_meas_radps, 1),
         ))
 
     def paint(self, width: int, height: int) -> Rows:
@@ -305,7 +310,7 @@ class WheelPanel(Panel):
             if width >= 64:
                 text.append(f"{name} ", "bold")
                 text.append(f"cmd {signed(radps)} rad/s ({wire:+.0f} {self.suffix})  ", self.style_of("wheel--cmd"))
-                text.append(f"meas {signed(meas)} rad/s ({meas_unit} {self.suffix})", self.style_of("wheel--meas"))
+                text.append(f"meas {signed(meas, 1)} rad/s ({meas_unit} {self.suffix})", self.style_of("wheel--meas"))
             else:
                 text.append(f"{name[0].upper()} ", "bold")
                 text.append(f"▆{signed(radps, 1)} ", self.style_of("wheel--cmd"))

@@ -79,7 +79,7 @@ def _console(duration_s: float, folder: Path) -> dict[str, object]:
                           size=(120, 40), env={"DIFFDECK_TRACE_FILE": str(trace_path)})
     try:
         console.started(r"DISARMED")
-        console.wait_for(r"telemetry +\d+ ms ago")
+        console.wait_for(r"telemetry +≤ \d+ ms ago")
         console.keys("a")
         console.wait_for(r"ENTER")
         console.keys("Enter")
