@@ -1,15 +1,19 @@
 """Polarity and encoder check: which wheel answers each command channel, in which direction, and how strongly.
 
 The `polarity` program pulses each wheel forwards and backwards in turn. For every commanded channel this compares the
-measured wheel rates (telemetry) and, on the simulated robot, the true wheel motion recovered from the true pose
-(a left-only wheel motion moves the robot by s_left / 2 and turns it by -s_left / W). Telemetry alone cannot tell a
-reversed motor from a reversed encoder (both make the measured sign wrong) nor see a side mounted mirrored (both flip
-together): on hardware the check says what to watch for instead of guessing.
+measured wheel rates (telemetry) and the true wheel motion: on the simulated robot recovered from the true pose
+(a left-only wheel motion moves the robot by s_left / 2 and turns it by -s_left / W), on hardware as the operator saw
+it (typed after the run, kept in the bench sidecar). Telemetry alone cannot tell a reversed motor from a reversed
+encoder (both make the measured sign wrong) nor see a side mounted mirrored (both flip together): without an
+observation the check says what to watch for instead of guessing.
 """
 
 from __future__ import annotations
 
+import json
+import os
 from dataclasses import dataclass, field
+from pathlib import Path
 
 import numpy as np
 
@@ -77,6 +81,40 @@ def _wheel_travel(rec: Recording, t0: float, t1: float) -> tuple[float, float] |
     return forward - turn * half, forward + turn * half
 
 
+OBSERVATIONS = ("left forwards", "left backwards", "right forwards", "right backwards", "none")
+"""What the operator may have seen in a channel's 'forwards' pulse: which wheel turned, which way."""
+
+
+def has_pulses(rec: Recording) -> bool:
+    """The recording holds the pulses of a polarity program on both channels."""
+    pulses = _pulses(rec)
+    return bool(pulses["left"] and pulses["right"])
+
+
+def observed_response(observed: dict[str, str]) -> tuple[tuple[float, float], tuple[float, float]] | None:
+    """The operator's observations as a response matrix ([channel][wheel]: +1 forwards, -1 backwards, 0 still)."""
+    rows = []
+    for channel in WHEELS:
+        answer = observed.get(channel)
+        if answer not in OBSERVATIONS:
+            return None
+        row = [0.0, 0.0]
+        if answer != "none":
+            wheel, way = answer.split()
+            row[WHEELS.index(wheel)] = 1.0 if way == "forwards" else -1.0
+        rows.append((row[0], row[1]))
+    return rows[0], rows[1]
+
+
+def record_observations(bench_sidecar: Path, observed: dict[str, str]) -> None:
+    """Add the operator's observations to a run's bench sidecar (rewritten atomically) for the report."""
+    meta = json.loads(bench_sidecar.read_text(encoding="utf-8"))
+    meta["observed"] = observed
+    tmp = bench_sidecar.with_name(bench_sidecar.name + ".tmp")
+    tmp.write_text(json.dumps(meta, indent=2) + "\n", encoding="utf-8")
+    os.replace(tmp, bench_sidecar)
+
+
 def check_polarity(rec: Recording, units: dict[str, object] | None = None) -> PolarityReport | None:
     """Diagnose from a recording of the polarity program; `units` is the profile's [units] table (current values)."""
     pulses = _pulses(rec)
@@ -106,6 +144,8 @@ def check_polarity(rec: Recording, units: dict[str, object] | None = None) -> Po
             physical.append(tuple(float(v) for v in np.mean(phys, axis=0)))
     m = tuple(measured)
     p = tuple(physical) if physical is not None else None
+    if p is None and rec.bench is not None and isinstance(rec.bench.get("observed"), dict):
+        p = observed_response(rec.bench["observed"])      # hardware: what the operator saw
     return PolarityReport(m, p, tuple(_diagnose(m, p, units)))
 
 

@@ -16,7 +16,9 @@ from types import FrameType
 from rich.console import Console
 from rich.progress import BarColumn, Progress, TextColumn, TimeRemainingColumn
 
+from console.bench.polarity import OBSERVATIONS, has_pulses, record_observations
 from console.bench.program import BUILTINS, BoundProgram, resolve_program
+from console.bench.recording import read_recording
 from console.bench.run import STOP_WAIT_S, BenchResult, BenchRun
 from console.errors import InputError, LinkLost, RobotFault
 from console.loop import StopCause
@@ -93,6 +95,9 @@ def run(args: argparse.Namespace) -> int:
                       "limit, only the wheel-rate limit. The motors see raw steps.")
     if url != "sim":
         _confirm(console, url)
+        if program.name == "polarity":
+            console.print("Watch the wheels: afterwards you will be asked which wheel turned which way in the "
+                          "'left forwards' and 'right forwards' pulses.")
     else:
         console.print(CAUTION)
     ui_timeout = None
@@ -133,6 +138,25 @@ def run(args: argparse.Namespace) -> int:
     finally:
         interrupts.restore()
         result = bench.close()
+    code = _outcome(result, interrupts.count > 0)
+    if code == 0 and bench.url != "sim":
+        _ask_observations(console, result)
     console.print(f"bench: recording {result.recording} (+ {result.bench_sidecar.name}); "
                   f"next: diffdeck report {result.recording}")
-    return _outcome(result, interrupts.count > 0)
+    return code
+
+
+def _ask_observations(console: Console, result: BenchResult) -> None:
+    """After a polarity program on hardware: which wheel the operator saw turn, which way (telemetry cannot tell)."""
+    if not has_pulses(read_recording(result.recording)):
+        return
+    observed = {}
+    for channel in ("left", "right"):
+        console.print(f"In the '{channel} forwards' pulse, which wheel turned and which way? Type one of: "
+                      + ", ".join(OBSERVATIONS))
+        answer = " ".join(sys.stdin.readline().lower().split())
+        if answer not in OBSERVATIONS:
+            raise InputError("bench", f"observation ({channel} forwards)", answer or "(none)",
+                             "one of " + ", ".join(OBSERVATIONS) + f"; the recording is kept in {result.recording}")
+        observed[channel] = answer
+    record_observations(result.bench_sidecar, observed)

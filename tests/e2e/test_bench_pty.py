@@ -77,3 +77,22 @@ def test_ctrl_c_stops_under_control_and_keeps_the_recording(tmp_path: Path) -> N
     assert rec.data["v_mps"][-1] == 0.0
     side = json.loads(csv.with_name(csv.name + ".bench.json").read_text())
     assert side["completed"] is False and side["cause"] == "operator"
+
+
+def test_polarity_over_a_pty_asks_what_the_operator_saw(tmp_path: Path) -> None:
+    sim, device = start_sim()
+    try:
+        bench = subprocess.Popen([sys.executable, "-m", "console", "bench", str(WREN), "polarity", "--link", device,
+                                  "--out", str(tmp_path / "rec")], cwd=ROOT, stdin=subprocess.PIPE,
+                                 stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+        _, err = bench.communicate("wheels up\nleft forwards\nRight  Forwards\n", timeout=90)
+        assert bench.returncode == 0, err
+    finally:
+        stop(sim)
+    assert "which wheel turned" in err
+    csv = next((tmp_path / "rec").glob("*.csv"))
+    side = json.loads(csv.with_name(csv.name + ".bench.json").read_text())
+    assert side["observed"] == {"left": "left forwards", "right": "right forwards"}
+    report = subprocess.run([sys.executable, "-m", "console", "report", str(csv), "-o", str(tmp_path / "rep"),
+                             "--json"], cwd=ROOT, capture_output=True, text=True, timeout=120)
+    assert [f["kind"] for f in json.loads(report.stdout)["polarity"]["findings"]] == ["ok"]

@@ -8,6 +8,7 @@ checked against scipy's ODE solver in tests/console/sim/test_plant.py): the repo
 from __future__ import annotations
 
 import json
+import shutil
 from pathlib import Path
 
 import numpy as np
@@ -16,7 +17,8 @@ import pytest
 from console.bench.program import builtin, load_program
 from console.bench.recording import read_recording
 from console.bench.report import FIGURES, analyze, write_report
-from console.bench.run import BenchRun
+from console.bench.polarity import record_observations
+from console.bench.run import BenchRun, bench_sidecar_path
 from console.bench.tomledit import edit_toml
 from console.loop import SafetyState, StopCause
 from console.profile import Profile, load_profile
@@ -158,3 +160,36 @@ def test_suggested_limits_keep_the_stated_tracking_error_on_a_second_run(tmp_pat
     # within the stated error, allowing 10 % for the 50 Hz telemetry's sample-and-hold; faster ramps break it
     assert results[1.0] <= 1.1 * limits.speed_error_mps
     assert results[1.6] > 1.2 * limits.speed_error_mps
+
+
+def _without_pose(result, tmp_path: Path) -> Path:
+    """The same run as hardware would record it: no true pose columns."""
+    lines = result.recording.read_text().splitlines()
+    csv = tmp_path / "hardware.csv"
+    csv.write_text("\n".join(",".join(line.split(",")[:10]) for line in lines) + "\n")
+    for suffix in (".json", ".bench.json"):
+        shutil.copy(result.recording.with_name(result.recording.name + suffix), csv.with_name(csv.name + suffix))
+    return csv
+
+
+OBSERVED = [
+    ({"invert_left_motor": True}, {"left": "left backwards", "right": "right forwards"}, "inverted motor",
+     {"invert_left": True, "invert_left_encoder": True}),
+    ({"invert_left_encoder": True}, {"left": "left forwards", "right": "right forwards"}, "reversed encoder",
+     {"invert_left_encoder": True}),
+    ({"invert_right_motor": True, "invert_right_encoder": True}, {"left": "left forwards", "right": "right backwards"},
+     "mirrored side", {"invert_right": True}),
+    ({"swap_motors": True}, {"left": "right forwards", "right": "left forwards"}, "swapped", {"swap_motors": True}),
+]
+
+
+@pytest.mark.parametrize(("fault", "observed", "kind", "fix"), OBSERVED, ids=[o[2] for o in OBSERVED])
+def test_on_hardware_the_operators_observation_settles_what_telemetry_cannot(
+        tmp_path: Path, fault: dict, observed: dict, kind: str, fix: dict) -> None:
+    profile = _profile(tmp_path, {("sim", key): value for key, value in fault.items()})
+    csv = _without_pose(BenchRun(profile, builtin("polarity"), out_dir=tmp_path).run_to_end(), tmp_path)
+    assert not read_recording(csv).has_pose
+    record_observations(bench_sidecar_path(csv), observed)
+    polarity = analyze(read_recording(csv)).polarity
+    assert [f.kind for f in polarity.findings] == [kind]
+    assert polarity.fix == fix
