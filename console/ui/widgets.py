@@ -176,7 +176,7 @@ class LinkPanel(Panel):
             ("round trip", "—" if rtt is None else f"{rtt} ms"),
             ("errors", f"crc {crc} long {overlong} unk {unknown}"),
             ("loop late", f"p99 {p99:.2f} max {pmax:.2f} ms"),
-            ("missed", f"{overruns} periods"),
+            ("missed", f"{overruns} period" + ("" if overruns == 1 else "s")),
             ("battery", ("—" if battery is None else f"{battery:.1f} V") + (f"  {' '.join(flag_names)}" if flag_names else "")),
             ("frames", f"tx {sent} rx {received}"),
         ]
@@ -552,7 +552,7 @@ class TopView(Panel):
             canvas.polyline(tx, ty, self._TRAIL)
         arrow = self._ARROWS[round(heading / (math.pi / 4.0)) % 8]
         canvas.mark(int(cx // 2), int(cy // 4), arrow, self.style_of("top--robot"))
-        text.append(f"{x0:+.2f},{y0:+.2f} m {math.degrees(heading):.0f}° grid {grid_m:g} m",
+        text.append(f"{x0:+.2f},{y0:+.2f}m {math.degrees(heading) % 360.0:.0f}° grid {grid_m:g}m",
                     self.style_of("top--label"))
         for line in canvas.to_rows({self._GRID: self.style_of("top--grid"), self._TRAIL: self.style_of("top--trail")}):
             text.newline()
