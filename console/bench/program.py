@@ -16,7 +16,6 @@ from pathlib import Path
 from typing import Any
 
 import numpy as np
-from scipy import signal
 
 from console.errors import InputError
 from shaping.envelope import Envelope
@@ -479,6 +478,8 @@ class BoundSegment:
 
     def wave(self, tau: np.ndarray) -> np.ndarray:
         """The segment's axis value at times tau (s since the segment start), vectorized."""
+        from scipy import signal  # here, not at the top: the CLI imports every verb to build its help
+
         seg = self.segment
         if seg.kind is Kind.HOLD:
             return np.full_like(tau, self.start)

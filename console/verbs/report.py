@@ -10,7 +10,6 @@ from rich.console import Console
 from rich.table import Table
 
 from console.bench.recording import read_recording
-from console.bench.report import analyze, write_report
 from console.errors import InputError
 
 NAME = "report"
@@ -33,6 +32,8 @@ def run(args: argparse.Namespace) -> int:
     out = Path(args.out) if args.out else Path("reports") / Path(args.recording).stem
     if out.exists() and not out.is_dir():
         raise InputError("command line", "--out", str(out), "a folder")
+    from console.bench.report import analyze, write_report  # scipy and matplotlib: only when a report is made
+
     report = analyze(recording, args.tolerance_mps)
     paths = write_report(recording, report, out)
     if args.json:
