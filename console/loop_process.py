@@ -9,7 +9,8 @@ the link "sim"), the recorder and the `ControlLoop` from picklable arguments, st
 its main thread only waits on the pipe (`conn.poll`): each command is applied the moment it arrives, and the newest
 snapshot goes up at most `snapshot_hz` times a second. If the pipe breaks or the parent is gone (or the child gets
 SIGTERM) the child stops the robot itself: a fast stop (cause UI stall), escalated to an immediate one if the robot is
-not at rest in the time the stop should take, then it closes the recording and exits.
+not at rest in the time the stop should take, then it closes the recording and exits. SIGHUP (the terminal closed)
+does the same, and ctrl+c is left to the parent.
 
 Parent: `LoopProcess` sends each call as one small message and keeps the newest snapshot from a reader thread (one
 reference assignment, as in `ControlLoop.snapshot`). A child that ends without being asked shows as a STOPPED snapshot
@@ -23,6 +24,7 @@ import gc
 import multiprocessing
 import os
 import pickle
+import select
 import signal
 import threading
 import time
@@ -42,7 +44,8 @@ if TYPE_CHECKING:
     from console.ui.trace import KeyWireTrace
 
 SNAPSHOT_HZ = 30.0
-"""Snapshots sent to the parent per second at most: the console renders at <= 30 Hz, more would be pickled for nothing."""
+"""Snapshots sent to the parent per second at most: the console renders at <= 30 Hz, more would be pickled for
+nothing."""
 START_TIMEOUT_S = 60.0
 """A spawned interpreter imports numpy and the console before it answers: seconds on a loaded host, never a minute."""
 CLOSE_TIMEOUT_S = 30.0
@@ -94,12 +97,23 @@ def _rebuilt(portable: tuple[Any, ...]) -> BaseException:
 # -- child ---------------------------------------------------------------------------------------------------------
 
 class _Terminated(Exception):
-    """SIGTERM in the child: stop the robot, then exit."""
+    """SIGTERM or SIGHUP (terminal closed) in the child: stop the robot, then exit."""
 
 
-def _on_sigterm(signum: int, frame: object) -> None:
-    signal.signal(signal.SIGTERM, signal.SIG_DFL)     # a second SIGTERM ends the child at once
+ENDING_SIGNALS = (signal.SIGTERM, signal.SIGHUP)
+
+
+def _on_ending_signal(signum: int, frame: object) -> None:
+    for ending in ENDING_SIGNALS:
+        signal.signal(ending, signal.SIG_DFL)        # a second one ends the child at once
     raise _Terminated
+
+
+def _has_room(conn: Connection) -> bool:
+    """The pipe takes a snapshot without blocking. Linux reports a Unix socket writable while under a quarter of its
+    send buffer is in use, far more than one snapshot, so a parent that stops reading only costs it snapshots: the
+    child keeps taking commands (the stop key among them)."""
+    return bool(select.select([], [conn.fileno()], [], 0.0)[1])
 
 
 def _build(profile: Profile, options: _Options) -> tuple[ControlLoop, Any, Any]:
@@ -206,7 +220,7 @@ class _Child:
                 if os.getppid() != self.options.parent_pid:
                     return False       # reparented: the parent died, whoever else holds the pipe
                 snapshot = loop.snapshot()
-                if snapshot is not sent:
+                if snapshot is not sent and _has_room(conn):
                     conn.send(("snap", snapshot))
                     sent = snapshot
                 if loop.failure is not None and not failure_sent:
@@ -217,9 +231,10 @@ class _Child:
 
 
 def _child_main(conn: Connection, profile: Profile, options: _Options) -> None:
-    """The child process: build, answer "ready" (or the start-up error), serve, and always end with the robot at rest."""
+    """The child process: build, answer "ready" (or the start-up error), serve; it always ends with the robot at rest."""
     signal.signal(signal.SIGINT, signal.SIG_IGN)     # ctrl+c in the terminal is the parent's to handle
-    signal.signal(signal.SIGTERM, _on_sigterm)
+    for ending in ENDING_SIGNALS:
+        signal.signal(ending, _on_ending_signal)
     try:
         loop, recorder, trace = _build(profile, options)
     except Exception as error:   # noqa: BLE001 - every start-up error goes back to the parent, which raises it
@@ -233,7 +248,8 @@ def _child_main(conn: Connection, profile: Profile, options: _Options) -> None:
     except _Terminated:
         pass
     finally:
-        signal.signal(signal.SIGTERM, signal.SIG_DFL)
+        for ending in ENDING_SIGNALS:
+            signal.signal(ending, signal.SIG_DFL)
         if child.started:
             if asked:
                 _come_to_rest(loop, StopKind.CONTROLLED, StopCause.PROGRAM_END)

@@ -146,7 +146,7 @@ def test_a_broken_pipe_makes_the_child_stop_the_robot_and_exit(profile, tmp_path
     assert _mean_stop_decel(record) > profile.limits.decel_mps2
 
 
-@pytest.mark.parametrize("signum", [signal.SIGTERM, signal.SIGKILL], ids=["terminate", "kill"])
+@pytest.mark.parametrize("signum", [signal.SIGTERM, signal.SIGHUP, signal.SIGKILL], ids=["terminate", "hangup", "kill"])
 def test_a_dead_child_shows_as_stopped_without_a_hang(profile, tmp_path, signum) -> None:
     record = tmp_path / "killed.csv"
     proxy = LoopProcess(profile, record_path=record)
@@ -162,7 +162,7 @@ def test_a_dead_child_shows_as_stopped_without_a_hang(profile, tmp_path, signum)
         proxy.ui_alive()
     finally:
         proxy.close()
-    if signum == signal.SIGTERM:        # terminate: the child still stopped the robot and closed the recording
+    if signum != signal.SIGKILL:        # terminate, hangup: the child still stopped the robot and closed the recording
         assert proxy.exitcode == 0 and sidecar_path(record).exists()
         assert read_csv(record)["state"][-1] == "stopped"
     else:                               # killed outright: what was flushed is still a readable recording
