@@ -231,7 +231,7 @@ class _Child:
 
 
 def _child_main(conn: Connection, profile: Profile, options: _Options) -> None:
-    """The child process: build, answer "ready" (or the start-up error), serve; it always ends with the robot at rest."""
+    """The child: build, answer "ready" (or the start-up error), serve; it always ends with the robot at rest."""
     signal.signal(signal.SIGINT, signal.SIG_IGN)     # ctrl+c in the terminal is the parent's to handle
     for ending in ENDING_SIGNALS:
         signal.signal(ending, _on_ending_signal)
