@@ -285,11 +285,14 @@ class WheelPanel(Panel):
         self.per_radps = profile.units.per_radps
         self.suffix = profile.units.suffix
         self.signs = (-1.0 if profile.units.invert_left else 1.0, -1.0 if profile.units.invert_right else 1.0)
+        full_scale = self.bound_radps * self.per_radps      # the firmware value at the wheel-rate limit
+        self.unit_digits = 3 if full_scale < 10.0 else 1 if full_scale < 1000.0 else 0
 
     def show(self, snap: Snapshot) -> None:
         s = snap.shaped
         self._update((
-            round(s.left_radps, 2), round(s.right_radps, 2), round(snap.left_cmd, 1), round(snap.right_cmd, 1),
+            round(s.left_radps, 2), round(s.right_radps, 2), round(snap.left_cmd, self.unit_digits),
+            round(snap.right_cmd, self.unit_digits),
             None if snap.left_meas_radps is None else round(snap.left_meas_radps, 1),
             None if snap.right_meas_radps is None else round(snap.right_meas_radps, 1),
         ))
@@ -306,16 +309,17 @@ class WheelPanel(Panel):
                                                                           self.signs[1]))
         for i, (name, radps, wire, meas, sign) in enumerate(wheels):
             saturated = abs(radps) >= bound - 1e-6
-            meas_unit = "—" if meas is None else f"{meas * self.per_radps * sign:+.0f}"
+            u = self.unit_digits
+            meas_unit = "—" if meas is None else f"{meas * self.per_radps * sign:+.{u}f}"
             if width >= 64:
                 text.append(f"{name} ", "bold")
-                text.append(f"cmd {signed(radps)} rad/s ({wire:+.0f} {self.suffix})  ", self.style_of("wheel--cmd"))
+                text.append(f"cmd {signed(radps)} rad/s ({wire:+.{u}f} {self.suffix})  ", self.style_of("wheel--cmd"))
                 text.append(f"meas {signed(meas, 1)} rad/s ({meas_unit} {self.suffix})", self.style_of("wheel--meas"))
             else:
                 text.append(f"{name[0].upper()} ", "bold")
                 text.append(f"▆{signed(radps, 1)} ", self.style_of("wheel--cmd"))
                 text.append(f"▲{signed(meas, 1)} rad/s ", self.style_of("wheel--meas"))
-                text.append(f"▆{wire:+.0f} ", self.style_of("wheel--cmd"))
+                text.append(f"▆{wire:+.{u}f} ", self.style_of("wheel--cmd"))
                 text.append(f"▲{meas_unit} {self.suffix}", self.style_of("wheel--meas"))
             if saturated:
                 text.append("  AT BOUND", self.style_of("wheel--sat"))
