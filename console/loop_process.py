@@ -33,7 +33,8 @@ from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
 from console.errors import InputError, LinkLost
-from console.loop import ControlLoop, Event, LinkStats, LoopStats, SafetyState, Snapshot, StopCause, WallClock
+from console.loop import (ControlLoop, Event, LinkStats, LoopStats, SafetyState, Snapshot, StopCause, WallClock,
+                          request_realtime)
 from shaping.ramp import plan_ramp
 from shaping.shaper import StopKind, speed_limits, turn_limits
 
@@ -195,6 +196,8 @@ class _Child:
     def _start(self, realtime: bool) -> None:
         gc.collect()
         gc.freeze()            # start-up objects are never scanned again: short collections beside the loop
+        if realtime:
+            request_realtime()     # this thread too: a command must not wait for a CPU behind normal processes
         self.loop.start(realtime)
         self.started = True
         self.conn.send(("started", self.loop.scheduling))
