@@ -19,6 +19,10 @@ class InputError(DiffdeckError):
         self.allowed = allowed
         super().__init__(f"{where}: {key} = {value!r}: {allowed}")
 
+    def __reduce__(self) -> tuple[type, tuple[str, str, object, str]]:
+        """Rebuild from the four fields, so the error crosses a process boundary (the loop's child) as itself."""
+        return type(self), (self.where, self.key, self.value, self.allowed)
+
 
 class LinkLost(DiffdeckError):
     """The link to the robot went away (unplugged adapter, closed pty, reset TCP bridge)."""

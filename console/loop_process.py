@@ -77,22 +77,13 @@ class _Options:
 
 # -- errors across the pipe ----------------------------------------------------------------------------------------
 
-def _portable(error: BaseException) -> tuple[Any, ...]:
-    """An exception in a form that survives the pipe: InputError by its four fields (its constructor is not the
-    one pickle calls), other exceptions as themselves when they round-trip, else a RuntimeError naming them."""
-    if isinstance(error, InputError):
-        return ("input", error.where, error.key, error.value, error.allowed)
+def _portable(error: BaseException) -> BaseException:
+    """The exception itself when it survives the pipe (InputError and its kinds do), else a RuntimeError naming it."""
     try:
         pickle.loads(pickle.dumps(error))
     except Exception:   # noqa: BLE001 - any exception that cannot be rebuilt is sent by name and text
-        return ("other", RuntimeError(f"{type(error).__name__}: {error}"))
-    return ("other", error)
-
-
-def _rebuilt(portable: tuple[Any, ...]) -> BaseException:
-    if portable[0] == "input":
-        return InputError(*portable[1:])
-    return portable[1]
+        return RuntimeError(f"{type(error).__name__}: {error}")
+    return error
 
 
 # -- child ---------------------------------------------------------------------------------------------------------
@@ -315,7 +306,7 @@ class LoopProcess:
                     return payload
                 self._process.join(KILL_AFTER_S)
                 self._conn.close()
-                raise _rebuilt(payload)
+                raise payload
         except (EOFError, OSError):
             pass
         self._end_process()
@@ -408,7 +399,7 @@ class LoopProcess:
                 elif kind == "started":
                     self.scheduling = payload[0]
                 elif kind == "failed":
-                    self.failure = _rebuilt(payload[0])
+                    self.failure = payload[0]
                 elif kind == "closed":
                     self._closed_by_child(*payload)
                     return
