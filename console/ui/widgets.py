@@ -175,7 +175,7 @@ class LinkPanel(Panel):
             ("telemetry", "none yet" if age is None else f"≤ {age} ms ago"),
             ("round trip", "—" if rtt is None else f"{rtt} ms"),
             ("errors", f"crc {crc} long {overlong} unk {unknown}"),
-            ("loop late", f"p99 {p99:.2f} max {pmax:.2f} ms"),
+            ("loop late", f"p99 {p99:.2f} max {pmax:.{1 if pmax >= 10.0 else 2}f} ms"),
             ("missed", f"{overruns} period" + ("" if overruns == 1 else "s")),
             ("battery", ("—" if battery is None else f"{battery:.1f} V") + (f"  {' '.join(flag_names)}" if flag_names else "")),
             ("frames", f"tx {sent} rx {received}"),
