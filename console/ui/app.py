@@ -28,6 +28,7 @@ from shaping.shaper import StopKind
 
 if TYPE_CHECKING:
     from console.loop import Clock, ControlLoop, Snapshot
+    from console.loop_process import LoopProcess
     from console.profile import Profile
 
 RENDER_HZ_MAX = 30.0
@@ -213,7 +214,7 @@ class DriveApp(App[int]):
         Binding("q,ctrl+c", "quit_console", "stop and quit", priority=True),
     ]
 
-    def __init__(self, loop: ControlLoop, profile: Profile, clock: Clock, settings: DriveSettings, *,
+    def __init__(self, loop: ControlLoop | LoopProcess, profile: Profile, clock: Clock, settings: DriveSettings, *,
                  real_link: bool, render_hz: float = 20.0, trace: KeyWireTrace | None = None,
                  on_ready: Callable[[], None] | None = None) -> None:
         super().__init__()

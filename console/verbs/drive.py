@@ -1,8 +1,9 @@
 """`diffdeck drive PROFILE [--link URL]`: the operator console on a real robot or on the built-in simulated one.
 
-The control loop runs on its own thread on the wall clock; the Textual app only reads its snapshots and sends
-requests. When the app ends (q, ctrl+c or a crash) the robot gets a controlled stop and the loop keeps running until
-the robot is at rest, so leaving the console never leaves a wheel turning.
+The control loop runs in its own process (console.loop_process, wall clock, with the simulated robot for "sim"); the
+Textual app only reads its snapshots and sends requests through the proxy. When the app ends (q, ctrl+c or a crash)
+the robot gets a controlled stop and the loop keeps running until the robot is at rest, so leaving the console never
+leaves a wheel turning; if this process dies instead, the loop's process stops the robot by itself.
 """
 
 from __future__ import annotations
@@ -13,15 +14,19 @@ import gc
 import math
 import sys
 import time
+from typing import TYPE_CHECKING
 
 from console.errors import InputError
-from console.loop import ControlLoop, SafetyState, StopCause, WallClock
+from console.loop import SafetyState, StopCause, WallClock
 from console.profile import Profile, load_profile
-from console.record import Recorder, default_path
+from console.record import default_path
 from console.transport import Transport, memory_pair, open_url
 from console.ui.driving import DriveMode, DriveSettings
 from console.ui.trace import KeyWireTrace
 from shaping.shaper import StopKind
+
+if TYPE_CHECKING:
+    from console.loop_process import LoopProcess
 
 NAME = "drive"
 HELP = "open the operator console: arm, drive and stop the robot (or the simulated one) with live gauges"
@@ -97,7 +102,7 @@ def open_link(profile: Profile) -> tuple[Transport, object | None]:
     return open_url(profile.link.url, profile.link.baud), None
 
 
-def _bring_to_rest(loop: ControlLoop) -> None:
+def _bring_to_rest(loop: LoopProcess) -> None:
     """Controlled stop, then keep the loop (and its UI heartbeat) going until the robot is at rest."""
     loop.stop(StopKind.CONTROLLED, StopCause.PROGRAM_END)
     deadline = time.monotonic() + SETTLE_TIMEOUT_S
@@ -109,46 +114,43 @@ def _bring_to_rest(loop: ControlLoop) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
-    from console.ui.app import DriveApp   # Textual is imported only when the console really opens
+    from console.loop_process import LoopProcess   # the loop's own process: the UI cannot make it late
+    from console.ui.app import DriveApp            # Textual is imported only when the console really opens
 
     profile = profile_for_link(args, load_profile(args.profile))
     settings = settings_from(args, profile)
-    transport, sim = open_link(profile)
     trace = KeyWireTrace.from_env()
-    if trace is not None:
-        transport = trace.wrap(transport)
-    recorder = Recorder(default_path(profile), profile, profile.link.url) if args.record else None
-    clock = WallClock()
-    loop = ControlLoop(profile, transport, clock, sim=sim, recorder=recorder, ui_timeout_s=UI_TIMEOUT_S,
-                       url=profile.link.url)
+    # start-up errors (bad URL, link lost on open, unwritable recording) are raised here, before any screen
+    loop = LoopProcess(profile, url=profile.link.url, ui_timeout_s=UI_TIMEOUT_S, trace=trace,
+                       record_path=default_path(profile) if args.record else None)
 
     def start_loop() -> None:
-        """Once the screen is up: set the interpreter up for a real-time thread beside a UI, then start the loop.
+        """Once the screen is up: keep the UI process's own pauses short, then start the loop.
 
-        - A full garbage collection holds the interpreter for as long as it takes (tens of ms with a Textual app's
-          objects); after gc.freeze() the long-lived start-up objects are never scanned again.
-        - The UI thread hands the interpreter lock over at most every UI_SWITCH_INTERVAL_S when the loop thread
-          waits for it (the loop asks for 0.5 ms; measured with the console at 200 Hz: period-error p99 about
-          1.2 ms at 0.5 ms, about 0.4 ms at 0.1 ms, same CPU).
+        The loop runs in a child process (console.loop_process), so the UI's garbage collections and interpreter
+        lock cannot delay its periods; what the UI still has to be quick for is passing keys on. gc.freeze() keeps
+        the long-lived start-up objects out of every later collection, and a short switch interval lets the
+        proxy's reader thread and the terminal's input thread in between two steps of a render.
         """
         gc.collect()
         gc.freeze()
         sys.setswitchinterval(UI_SWITCH_INTERVAL_S)
         loop.start()
 
-    app = DriveApp(loop, profile, clock, settings, real_link=sim is None, trace=trace, on_ready=start_loop)
+    app = DriveApp(loop, profile, WallClock(), settings, real_link=profile.link.url != "sim", trace=trace,
+                   on_ready=start_loop)
     try:
         app.run()
     finally:
         _bring_to_rest(loop)
-        loop.close()
-        if recorder is not None:
-            recorder.close(loop.stats(), loop.link_stats())
-            print(f"diffdeck drive: recorded {recorder.path}", file=sys.stderr)
+        loop.close()                      # controlled stop; the child closes the recording (CSV + sidecar)
+        if loop.record_path is not None:
+            print(f"diffdeck drive: recorded {loop.record_path}", file=sys.stderr)
         if trace is not None:
             trace.save({"loop": dataclasses.asdict(loop.stats()), "link": dataclasses.asdict(loop.link_stats()),
-                        "events": [(e.t_s, e.text, e.kind) for e in loop.snapshot().events]})
+                        "events": [(e.t_s, e.text, e.kind) for e in loop.snapshot().events],
+                        "loop_pid": loop.pid})
     if loop.failure is not None:
-        print(f"diffdeck drive: the control loop failed: {loop.failure!r}", file=sys.stderr)
+        print(f"diffdeck drive: the control loop failed: {loop.failure}", file=sys.stderr)
         return 1
     return 0

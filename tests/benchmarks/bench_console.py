@@ -1,12 +1,13 @@
 """The drive console on the simulated robot at 200 Hz in a real terminal (tmux), beside the same loop with no UI.
 
 For DIFFDECK_BENCH_CONSOLE_S seconds (default 30) each:
-- console: `python -m console drive profiles/wren.toml --rate-hz 200` in a 120x40 tmux session, armed, with a
+- console: `python -m console drive profiles/wren.toml --rate-hz 200` in a 120x40 tmux session (the UI process and
+  the loop's own process, console.loop_process; CPU and memory are the sum of both), armed, with a
   driving key (an arrow) every 0.6 s; each nudge ramps in well under that, so the frame on the wire is steady when
   the next key comes and "the first changed frame" is the one the key caused. DIFFDECK_TRACE_FILE makes the app note
   when each key arrived and the transport when each changed wheel frame was handed to the link
   (console/ui/trace.py, CLOCK_MONOTONIC on both sides); the bench notes when it sent the key to tmux.
-- no UI: the same profile, loop, sim and request pattern in a plain process (request() every 0.6 s).
+- no UI: the same profile, loop (as a thread), sim and request pattern in a plain process (request() every 0.6 s).
 Figures: loop period error p99 / max, missed periods, key (or request) to first changed frame p50 / p99 / max,
 process CPU in % of one core (user + system over the driving time), resident memory (MB, peak).
 Targets: p99 <= 1 ms, max <= 3 ms, no missed period, key-to-wire p99 <= one period + 3 ms, CPU <= 35 %,
@@ -40,6 +41,17 @@ TARGETS = {"period_error_p99_ms": 1.0, "period_error_max_ms": 3.0, "missed_perio
 def _cpu_s(pid: int) -> float:
     fields = Path(f"/proc/{pid}/stat").read_text().rsplit(")", 1)[1].split()
     return (int(fields[11]) + int(fields[12])) / os.sysconf("SC_CLK_TCK")     # utime + stime
+
+
+def _children(pid: int) -> list[int]:
+    """Child processes of `pid` (the console's loop process), from /proc."""
+    found: list[int] = []
+    for task in Path(f"/proc/{pid}/task").iterdir():
+        try:
+            found += [int(child) for child in (task / "children").read_text().split()]
+        except OSError:
+            pass
+    return found
 
 
 def _peak_rss_mb(pid: int) -> float:
@@ -85,9 +97,10 @@ def _console(duration_s: float, folder: Path) -> dict[str, object]:
         console.keys("Enter")
         console.wait_for(r"(?<![A-Z])ARMED(?![A-Z])")
         pid = console.pid()
+        family = [pid, *_children(pid)]          # the UI process and the loop's own process
         sent: list[float] = []
         in_pty: list[float] = []
-        cpu0, t0 = _cpu_s(pid), time.perf_counter()
+        cpu0, t0 = [_cpu_s(p) for p in family], time.perf_counter()
         k = 0
         while time.perf_counter() - t0 < duration_s:
             next_t = t0 + (k + 1) * KEY_EVERY_S
@@ -96,8 +109,9 @@ def _console(duration_s: float, folder: Path) -> dict[str, object]:
             console.keys(KEYS[k % len(KEYS)])
             in_pty.append(time.perf_counter())       # send-keys returns once tmux has written the key to the pty
             k += 1
-        cpu = (_cpu_s(pid) - cpu0) / (time.perf_counter() - t0) * 100.0
-        rss = _peak_rss_mb(pid)
+        elapsed = time.perf_counter() - t0
+        cpu = [(_cpu_s(p) - c0) / elapsed * 100.0 for p, c0 in zip(family, cpu0)]
+        rss = [_peak_rss_mb(p) for p in family]
         screen = console.screen()
         console.keys("q")
         closed = console.wait_closed(30.0)
@@ -114,7 +128,8 @@ def _console(duration_s: float, folder: Path) -> dict[str, object]:
         "key_to_wire_from_key_in_pty": _first_changes_ms(in_pty, wire),
         "key_to_wire_from_app_receipt": _first_changes_ms(received, wire),
         "keys_sent": len(sent), "keys_received": len(received),
-        "cpu_percent": cpu, "rss_mb": rss,
+        "cpu_percent": sum(cpu), "rss_mb": sum(rss), "processes": len(family),
+        "cpu_percent_per_process": cpu, "rss_mb_per_process": rss,
         "stopped_by_loop": [text for _, text, kind in trace.get("events", []) if kind == "safety"],
     }
 
