@@ -32,6 +32,8 @@ if TYPE_CHECKING:
     from console.profile import Profile
 
 RENDER_HZ_MAX = 30.0
+RENDER_HZ = 20.0
+"""Screen refreshes per second: numbers a person can read move smoothly, and the CPU is left to the loop."""
 HEAVY_PERIOD_S = 0.2
 """The plot and the top view (the biggest panels) repaint at most every 1/8 s of loop time: that scrolls smoothly
 enough and keeps the whole console within its CPU budget; their samples are still taken on every tick. Loop time,
@@ -215,7 +217,7 @@ class DriveApp(App[int]):
     ]
 
     def __init__(self, loop: ControlLoop | LoopProcess, profile: Profile, clock: Clock, settings: DriveSettings, *,
-                 real_link: bool, render_hz: float = 20.0, trace: KeyWireTrace | None = None,
+                 real_link: bool, render_hz: float = RENDER_HZ, trace: KeyWireTrace | None = None,
                  on_ready: Callable[[], None] | None = None) -> None:
         super().__init__()
         self.loop = loop

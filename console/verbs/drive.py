@@ -115,14 +115,15 @@ def _bring_to_rest(loop: LoopProcess) -> None:
 
 def run(args: argparse.Namespace) -> int:
     from console.loop_process import LoopProcess   # the loop's own process: the UI cannot make it late
-    from console.ui.app import DriveApp            # Textual is imported only when the console really opens
+    from console.ui.app import RENDER_HZ, DriveApp  # Textual is imported only when the console really opens
 
     profile = profile_for_link(args, load_profile(args.profile))
     settings = settings_from(args, profile)
     trace = KeyWireTrace.from_env()
     # start-up errors (bad URL, link lost on open, unwritable recording) are raised here, before any screen
     loop = LoopProcess(profile, url=profile.link.url, ui_timeout_s=UI_TIMEOUT_S, trace=trace,
-                       record_path=default_path(profile) if args.record else None)
+                       record_path=default_path(profile) if args.record else None,
+                       snapshot_hz=RENDER_HZ)    # one snapshot per screen refresh: more would be pickled for nothing
 
     def start_loop() -> None:
         """Once the screen is up: keep the UI process's own pauses short, then start the loop.
