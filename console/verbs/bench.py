@@ -7,11 +7,9 @@ and only after a typed confirmation, because a bench program drives the motors b
 from __future__ import annotations
 
 import argparse
-import signal
 import sys
 import time
 from pathlib import Path
-from types import FrameType
 
 from rich.console import Console
 from rich.progress import BarColumn, Progress, TextColumn, TimeRemainingColumn
@@ -21,6 +19,7 @@ from console.bench.program import BUILTINS, BoundProgram, resolve_program
 from console.bench.recording import read_recording
 from console.bench.run import STOP_WAIT_S, BenchResult, BenchRun
 from console.errors import InputError, LinkLost, RobotFault
+from console.interrupts import Interrupts
 from console.loop import StopCause
 from console.profile import load_profile
 
@@ -43,20 +42,6 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
                         "recordings)")
     parser.add_argument("--screen", action="store_true", help="show the bench screen (progress, safety state, live "
                         "plot); runs in real time, also on the simulated robot")
-
-
-class _Interrupts:
-    """Ctrl-C counted, never raised in the middle of a control cycle."""
-
-    def __init__(self) -> None:
-        self.count = 0
-        self._previous = signal.signal(signal.SIGINT, self._handle)
-
-    def _handle(self, signum: int, frame: FrameType | None) -> None:
-        self.count += 1
-
-    def restore(self) -> None:
-        signal.signal(signal.SIGINT, self._previous)
 
 
 def _confirm(console: Console, url: str) -> None:
@@ -113,7 +98,7 @@ def run(args: argparse.Namespace) -> int:
         code, result = run_bench_screen(bench)
         console.print(f"bench: recording {result.recording} (+ {result.bench_sidecar.name})")
         return _outcome(result, code != 0)
-    interrupts = _Interrupts()
+    interrupts = Interrupts()
     try:
         with Progress(TextColumn("{task.description}"), BarColumn(), TextColumn("{task.fields[segment]}"),
                       TimeRemainingColumn(), console=console, transient=False) as bar:

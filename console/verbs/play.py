@@ -13,12 +13,11 @@ from __future__ import annotations
 
 import argparse
 import bisect
-import signal
 import time
 from pathlib import Path
-from types import FrameType
 
 from console.errors import InputError, LinkLost, RobotFault
+from console.interrupts import Interrupts
 from console.loop import ControlLoop, SafetyState, Snapshot, StopCause, VirtualClock, WallClock
 from console.profile import load_profile
 from console.record import Recorder, default_path, sidecar_path
@@ -90,24 +89,10 @@ class _Player:
         return self.start_s is not None and self.trace_s >= self.requests.t_s[-1] - TIME_EPS_S
 
 
-class _Interrupts:
-    """Ctrl-C as a counter the player polls (never an exception in the middle of a cycle)."""
-
-    def __init__(self) -> None:
-        self.count = 0
-        self._previous = signal.signal(signal.SIGINT, self._handle)
-
-    def _handle(self, signum: int, frame: FrameType | None) -> None:
-        self.count += 1
-
-    def restore(self) -> None:
-        signal.signal(signal.SIGINT, self._previous)
-
-
 class _Run:
     """One play session: the loop on a thread (wall clock) or driven cycle by cycle (virtual clock)."""
 
-    def __init__(self, loop: ControlLoop, fast: bool, interrupts: _Interrupts) -> None:
+    def __init__(self, loop: ControlLoop, fast: bool, interrupts: Interrupts) -> None:
         self.loop, self.fast, self.interrupts = loop, fast, interrupts
 
     def wait(self, seconds: float) -> None:
@@ -177,7 +162,7 @@ def run(args: argparse.Namespace) -> int:
     loop = ControlLoop(profile, transport, VirtualClock() if args.fast else WallClock(), sim=sim,
                        recorder=recorder, url=url, on_cycle=player.on_cycle)
     player.loop = loop
-    interrupts = _Interrupts()
+    interrupts = Interrupts()
     session = _Run(loop, args.fast, interrupts)
     error: Exception | None = None
     try:

@@ -16,13 +16,21 @@ import threading
 import time
 from pathlib import Path
 
-from console.loop import (ControlLoop, CycleStats, DeadlineScheduler, SafetyState, VirtualClock, WallClock,
-                          request_realtime)
+from console.loop import (
+    ControlLoop,
+    CycleStats,
+    DeadlineScheduler,
+    SafetyState,
+    VirtualClock,
+    WallClock,
+    request_realtime,
+)
 from console.profile import load_profile
 from console.record import Recorder
 from console.sim.firmware import SimRobot
 from console.transport import memory_pair
 from shaping.shaper import StopKind
+from tests.benchmarks.figures import loop_timing
 
 WREN = Path(__file__).resolve().parents[2] / "profiles" / "wren.toml"
 RATES_HZ = (100.0, 200.0, 500.0)
@@ -56,12 +64,7 @@ def _one_rate(rate_hz: float, duration_s: float, folder: Path) -> dict[str, floa
         stats = loop.stats()
         recorder.close(stats, loop.link_stats())
     return {
-        "cycles": stats.cycles,
-        "missed_periods": stats.overruns,
-        "period_error_p50_ms": round(stats.period_error_p50_s * 1e3, 4),
-        "period_error_p99_ms": round(stats.period_error_p99_s * 1e3, 4),
-        "period_error_max_ms": round(stats.period_error_max_s * 1e3, 4),
-        "work_p99_ms": round(stats.work_p99_s * 1e3, 4),
+        **loop_timing(stats),
         "achieved_rate_hz": round(loop.link_stats().rate_hz, 2),
         "dropped_rows": recorder.dropped,
         "armed_throughout": armed_throughout,

@@ -38,6 +38,7 @@ from console.sim.firmware import SimRobot
 from console.ui.trace import KeyWireTrace
 from shaping.shaper import StopKind
 from tests.benchmarks.bench_loop import _bare_sleeper
+from tests.benchmarks.figures import loop_timing
 
 WREN = Path(__file__).resolve().parents[2] / "profiles" / "wren.toml"
 RATE_HZ = 200.0
@@ -104,12 +105,7 @@ def _figures(stats: Any, scheduling: str, requester: _Requester, wire: list[tupl
              period_s: float) -> dict[str, object]:
     latency = _latencies(requester.times, wire, period_s)
     return {
-        "cycles": stats.cycles,
-        "missed_periods": stats.overruns,
-        "period_error_p50_ms": round(stats.period_error_p50_s * 1e3, 4),
-        "period_error_p99_ms": round(stats.period_error_p99_s * 1e3, 4),
-        "period_error_max_ms": round(stats.period_error_max_s * 1e3, 4),
-        "work_p99_ms": round(stats.work_p99_s * 1e3, 4),
+        **loop_timing(stats),
         "request_to_wire": latency,
         "meets_targets": bool(stats.period_error_p99_s <= TARGET_P99_S and stats.period_error_max_s <= TARGET_MAX_S
                               and stats.overruns == 0 and latency.get("n", 0) > 0
