@@ -19,7 +19,7 @@ test: $(STAMP)
 	$(PY) -m pytest -q
 
 bench: $(STAMP)
-	$(PY) -m tests.benchmarks
+	@$(PY) -m tests.benchmarks
 
 clean:
 	rm -rf $(VENV) build *.egg-info
