@@ -26,8 +26,11 @@ from shaping.ramp import AxisLimits, Ramp, plan_ramp, standstill, stretch_ramp
 _SLACK = 1.0 + 1e-9
 """Rounding allowance when a plan's way is checked against the envelope."""
 
-_SHRINK_STEPS = 6
-"""Bisection steps for the largest part of a target whose way stays inside the envelope (1/64 resolution)."""
+_NEAR_SHARE = 63.0 / 64.0
+"""The part of a target tried first when the way to all of it leaves the envelope."""
+
+_SHRINK_STEPS = 5
+"""Then bisection steps below it for the largest part whose way stays inside (1/32 resolution)."""
 
 _AT_LIMIT = 0.999
 """Share of a budget from which a limit counts as binding (what the operator sees as 'which limit binds')."""
@@ -181,6 +184,9 @@ class Shaper:
     def __init__(self, geometry: Geometry, limits: Limits, mode: Mode = Mode.SYNCED) -> None:
         self.envelope = Envelope(geometry, limits)
         self.mode = mode
+        self._axis_limits = {
+            kind: (speed_limits(limits, kind), turn_limits(limits, kind)) for kind in (None, *StopKind)
+        }
         self.reset()
 
     def reset(self) -> None:
@@ -235,22 +241,29 @@ class Shaper:
         self._motion = self._plan((v, a), (w, alpha), target, stop)
         if stop is not None or self._way_inside(self._motion):
             return
-        inside, outside = 0.0, 1.0
-        for _ in range(_SHRINK_STEPS):
+        start = ((v, a), (w, alpha))
+
+        def plan_share(share: float) -> _AxesMotion | _LineMotion | None:
+            motion = self._plan(*start, (target[0] * share, target[1] * share), None)
+            return motion if self._way_inside(motion) else None
+
+        detour = plan_share(_NEAR_SHARE)  # most ways leave the envelope by a hair
+        inside, outside = 0.0, _NEAR_SHARE
+        for _ in range(0 if detour else _SHRINK_STEPS):
             middle = 0.5 * (inside + outside)
-            if self._way_inside(self._plan((v, a), (w, alpha), (target[0] * middle, target[1] * middle), None)):
-                inside = middle
-            else:
+            candidate = plan_share(middle)
+            if candidate is None:
                 outside = middle
-        self._motion = self._plan((v, a), (w, alpha), (target[0] * inside, target[1] * inside), None)
+            else:
+                inside, detour = middle, candidate
+        self._motion = detour or self._plan(*start, (0.0, 0.0), None)
         self._detour = True
 
     def _plan(
         self, speed_state: tuple[float, float], turn_state: tuple[float, float], target: tuple[float, float],
         stop: StopKind | None,
     ) -> _AxesMotion | _LineMotion:
-        limits = self.envelope.limits
-        speed, turn = speed_limits(limits, stop), turn_limits(limits, stop)
+        speed, turn = self._axis_limits[stop]
         if self.mode is Mode.SYNCED:
             sigma_rate = _common_rate(speed_state, turn_state, target, speed, turn)
             if sigma_rate is not None:
@@ -264,18 +277,23 @@ class Shaper:
         rate and each wheel's rate peak at a piece's end or at their vertex. The sideways product v * omega is
         checked at the same points and mid-piece.
         """
-        # Cheap and sufficient first: the box the way stays in is inside when its corners are (the linear limits
-        # bound a convex region, and |v * omega| is largest at a corner).
-        (v_low, v_high), (w_low, w_high) = motion.box()
-        usage = self.envelope.usage
-        if max(usage(v, w)[0] for v in (v_low, v_high) for w in (w_low, w_high)) <= 1.0:
-            return True
         limits, geometry = self.envelope.limits, self.envelope.geometry
         half_track = 0.5 * geometry.track_width_m
         rim_speed = limits.wheel_rate_radps * geometry.wheel_radius_m * _SLACK
         speed, reverse = limits.speed_mps * _SLACK, limits.reverse_speed_mps * _SLACK
         turn = limits.turn_rate_radps * _SLACK
         sideways = math.inf if limits.sideways_accel_mps2 is None else limits.sideways_accel_mps2 * _SLACK
+        # Cheap and sufficient first: the whole box the way stays in is inside (each limit at the box's worst corner).
+        (v_low, v_high), (w_low, w_high) = motion.box()
+        fastest, sharpest = max(-v_low, v_high), max(-w_low, w_high)
+        if (
+            v_high <= speed
+            and -v_low <= reverse
+            and sharpest <= turn
+            and fastest + sharpest * half_track <= rim_speed
+            and fastest * sharpest <= sideways
+        ):
+            return True
         joints = motion.joints()
         for t0, t1 in itertools.pairwise(joints):
             piece = t1 - t0
@@ -364,7 +382,7 @@ class Shaper:
     def _output(self, rejected: bool) -> Shaped:
         v, a, j, w, alpha, turn_jerk = self._motion.sample(self._t)
         limits = self.envelope.limits
-        speed, turn = speed_limits(limits, self._stop), turn_limits(limits, self._stop)
+        speed, turn = self._axis_limits[self._stop]
         left, right = self.envelope.geometry.to_wheels(v, w)
         accel_use = max(abs(a) / speed.bound(v, a), abs(alpha) / turn.accel)
         bound = self._bound
