@@ -84,6 +84,16 @@ class Envelope:
             available = min(available, self.limits.sideways_accel_mps2 / speed)
         return available
 
+    def speed_bounds_at(self, omega_radps: float) -> tuple[float, float]:
+        """(reverse, forward) speeds still available while turning at omega: the outer wheel's rate limit and the
+        sideways limit take their share, as max_turn_rate_at does for the turn rate."""
+        turn = abs(omega_radps)
+        rim_speed = self.limits.wheel_rate_radps * self.geometry.wheel_radius_m
+        room = max(0.0, rim_speed - turn * 0.5 * self.geometry.track_width_m)
+        if self.limits.sideways_accel_mps2 is not None and turn > 0.0:
+            room = min(room, self.limits.sideways_accel_mps2 / turn)
+        return min(self.limits.reverse_speed_mps, room), min(self.limits.speed_mps, room)
+
     def usage(self, v_mps: float, omega_radps: float) -> tuple[float, Bound | None]:
         """How far out (v, omega) is: the common factor it must be divided by to fit, and the limit that says so.
 

@@ -130,9 +130,8 @@ class DriveScreen(Screen[None]):
         meas_v = meas_w = None
         if snap.left_meas_radps is not None and snap.right_meas_radps is not None:
             meas_v, meas_w = geometry.to_body(snap.left_meas_radps, snap.right_meas_radps)
-        self.speed_gauge.show(
-            s.v_req_mps, s.v_target_mps, s.v_mps, meas_v, -envelope.top_reverse_speed_mps, envelope.top_speed_mps
-        )
+        reverse_bound, forward_bound = envelope.speed_bounds_at(s.omega_radps)
+        self.speed_gauge.show(s.v_req_mps, s.v_target_mps, s.v_mps, meas_v, -reverse_bound, forward_bound)
         turn_bound = envelope.max_turn_rate_at(s.v_mps)
         self.turn_gauge.show(
             s.omega_req_radps, s.omega_target_radps, s.omega_radps, meas_w, -turn_bound, turn_bound

@@ -90,3 +90,14 @@ def test_turn_rate_left_at_full_speed() -> None:
     assert at_half == pytest.approx(min(2.0, 2 * (1.05 - 0.5) / 0.40, 1.5 / 0.5))
     assert inside(0.5, at_half)
     assert not math.isnan(ENVELOPE.max_turn_rate_at(0.0))
+
+
+@given(turn_rates)
+def test_speed_bounds_at_a_turn_rate_lie_on_the_envelope_boundary(omega: float) -> None:
+    reverse, forward = ENVELOPE.speed_bounds_at(omega)
+    assert 0.0 <= reverse <= CART_LIMITS.reverse_speed_mps and 0.0 <= forward <= CART_LIMITS.speed_mps
+    for v in (forward, -reverse):
+        assert inside(v, omega) or abs(omega) > ENVELOPE.top_turn_rate_radps
+    if abs(omega) <= ENVELOPE.top_turn_rate_radps and forward > 0.0:
+        # one step further is outside: the bound is the boundary, not a guess inside it
+        assert not inside(forward * 1.001 + 1e-9, omega, slack=0.0)
