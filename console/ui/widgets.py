@@ -249,15 +249,23 @@ class AxisGauge(Panel):
 
         labels = [" "] * width
         label_styles: list[Style | None] = [None] * width
+        c_meas = None if meas is None else _col(meas, lo, hi, width)
         lo_text, hi_text = signed(bound_lo, d), signed(bound_hi, d)
-        _put(labels, max(c_lo - len(lo_text) + 1, 0), lo_text)
-        _put(labels, min(c_hi, width - len(hi_text)), hi_text)
+        _put(labels, _beside(max(c_lo - len(lo_text) + 1, 0), len(lo_text), c_meas, width), lo_text)
+        _put(labels, _beside(min(c_hi, width - len(hi_text)), len(hi_text), c_meas, width), hi_text)
         _put(labels, zero, "0")
-        if meas is not None:
-            c = _col(meas, lo, hi, width)
-            labels[c], label_styles[c] = "▲", self.style_of("gauge--meas")
+        if c_meas is not None:
+            labels[c_meas], label_styles[c_meas] = "▲", self.style_of("gauge--meas")
         _append_cells(text, labels, label_styles)
         return text
+
+
+def _beside(start: int, length: int, keep_clear: int | None, width: int) -> int:
+    """Where a label of `length` cells goes so that it does not cover the measured marker: at `start`, or moved
+    just past the marker (just before it when there is no room after)."""
+    if keep_clear is None or not start <= keep_clear < start + length:
+        return start
+    return keep_clear + 1 if keep_clear + 1 + length <= width else max(0, keep_clear - length)
 
 
 def _put(cells: list[str], start: int, word: str) -> None:
