@@ -169,8 +169,12 @@ class Ramp:
 def _normalised_plan(v0: float, a0: float, target: float, limits: AxisLimits) -> tuple[float, list[_Piece], int]:
     """Direction (+1/-1) and pieces in coordinates where the ramp rises; also where the second stage starts."""
     jerk = limits.jerk
-    excess = target - v0 - _ramp_dv(a0, 0.0, jerk)
-    direction = 1.0 if excess > 0.0 or (excess == 0.0 and a0 >= 0.0) else -1.0
+    settling = _ramp_dv(a0, 0.0, jerk)
+    excess = target - v0 - settling
+    # Where bringing a0 to zero lands on the target (a re-plan of a plan already on its last segment), rounding
+    # must not flip the direction: rise if a0 >= 0, else fall, so that the plan is that one segment.
+    on_course = abs(excess) <= 1e-9 * abs(settling)
+    direction = 1.0 if (a0 >= 0.0 if on_course else excess > 0.0) else -1.0
     v0n, a0n, tn = direction * v0, direction * a0, direction * target
     # Speed at the moment the (normalised) acceleration has come up to zero: where the rising part begins.
     v_rise = v0n if a0n >= 0.0 else v0n - a0n * a0n / (2.0 * jerk)

@@ -19,6 +19,8 @@ import itertools
 import math
 from dataclasses import dataclass
 
+import numpy as np
+
 from shaping.envelope import Bound, Envelope, Limits
 from shaping.geometry import Geometry
 from shaping.ramp import AxisLimits, Ramp, plan_ramp, standstill, stretch_ramp
@@ -97,6 +99,22 @@ def _speed_bound_along(v0: float, v1: float, limits: AxisLimits) -> float:
     if v0 * v1 < 0.0:
         return min(limits.accel, limits.decel)
     return limits.accel if abs(v1) >= abs(v0) else limits.decel
+
+
+def _peak_product(v: tuple[float, float, float], w: tuple[float, float, float], piece: float) -> float:
+    """max |v(tau) * omega(tau)| over [0, piece] for two quadratics given by their coefficients (c0, c1, c2).
+
+    The product is a quartic; its extremes are at the ends or where its derivative (a cubic) vanishes. Only
+    reached when the cheaper bound max|v| * max|omega| over the piece says the sideways limit may bind.
+    """
+    product = [sum(v[i] * w[n - i] for i in range(3) if 0 <= n - i < 3) for n in range(5)]
+    slope = [4.0 * product[4], 3.0 * product[3], 2.0 * product[2], product[1]]
+    candidates = [0.0, piece]
+    if any(slope):
+        # a nearly real root is kept too: evaluating the product at a spare point costs nothing and misses nothing
+        candidates += [root.real for root in np.roots(slope) if abs(root.imag) <= 1e-6 * (1.0 + abs(root.real))
+                       and 0.0 < root.real < piece]
+    return max(abs(sum(c * tau**n for n, c in enumerate(product))) for tau in candidates)
 
 
 def _common_rate(
@@ -298,23 +316,24 @@ class Shaper:
         for t0, t1 in itertools.pairwise(joints):
             piece = t1 - t0
             v, a, jerk, w, alpha, turn_jerk = motion.sample(t0)
-            times = [piece, 0.5 * piece]
+            times = [0.0, piece]
             for weight_v, weight_w in ((1.0, 0.0), (0.0, 1.0), (1.0, -half_track), (1.0, half_track)):
                 curve = weight_v * jerk + weight_w * turn_jerk
                 if curve != 0.0:
                     vertex = -(weight_v * a + weight_w * alpha) / curve
                     if 0.0 < vertex < piece:
                         times.append(vertex)
+            fastest = sharpest = 0.0
             for tau in times:
                 v_at = v + a * tau + 0.5 * jerk * tau * tau
                 w_at = w + alpha * tau + 0.5 * turn_jerk * tau * tau
-                if (
-                    v_at > speed
-                    or -v_at > reverse
-                    or abs(w_at) > turn
-                    or abs(v_at) + abs(w_at) * half_track > rim_speed
-                    or abs(v_at * w_at) > sideways
-                ):
+                if v_at > speed or -v_at > reverse or abs(w_at) > turn:
+                    return False
+                if abs(v_at) + abs(w_at) * half_track > rim_speed:
+                    return False
+                fastest, sharpest = max(fastest, abs(v_at)), max(sharpest, abs(w_at))
+            if fastest * sharpest > sideways:
+                if _peak_product((v, a, 0.5 * jerk), (w, alpha, 0.5 * turn_jerk), piece) > sideways:
                     return False
         return True
 
