@@ -19,8 +19,6 @@ import itertools
 import math
 from dataclasses import dataclass
 
-import numpy as np
-
 from shaping.envelope import Bound, Envelope, Limits
 from shaping.geometry import Geometry
 from shaping.ramp import AxisLimits, Ramp, plan_ramp, standstill, stretch_ramp
@@ -108,13 +106,42 @@ def _peak_product(v: tuple[float, float, float], w: tuple[float, float, float], 
     reached when the cheaper bound max|v| * max|omega| over the piece says the sideways limit may bind.
     """
     product = [sum(v[i] * w[n - i] for i in range(3) if 0 <= n - i < 3) for n in range(5)]
-    slope = [4.0 * product[4], 3.0 * product[3], 2.0 * product[2], product[1]]
-    candidates = [0.0, piece]
-    if any(slope):
-        # a nearly real root is kept too: evaluating the product at a spare point costs nothing and misses nothing
-        candidates += [root.real for root in np.roots(slope) if abs(root.imag) <= 1e-6 * (1.0 + abs(root.real))
-                       and 0.0 < root.real < piece]
+    candidates = [0.0, piece] + [
+        root for root in real_cubic_roots(4.0 * product[4], 3.0 * product[3], 2.0 * product[2], product[1])
+        if 0.0 < root < piece
+    ]
     return max(abs(sum(c * tau**n for n, c in enumerate(product))) for tau in candidates)
+
+
+def real_cubic_roots(c3: float, c2: float, c1: float, c0: float) -> list[float]:
+    """Real roots of c3 x^3 + c2 x^2 + c1 x + c0, in closed form (Cardano; trigonometric form for three roots).
+
+    Lower degrees are handled when the leading coefficients vanish next to the others.
+    """
+    scale = max(abs(c3), abs(c2), abs(c1), abs(c0))
+    if scale == 0.0:
+        return []
+    if abs(c3) <= 1e-12 * scale:
+        if abs(c2) <= 1e-12 * scale:
+            return [] if c1 == 0.0 else [-c0 / c1]
+        disc = c1 * c1 - 4.0 * c2 * c0
+        if disc < 0.0:
+            return []
+        root = math.sqrt(disc)
+        return [(-c1 - root) / (2.0 * c2), (-c1 + root) / (2.0 * c2)]
+    a, b, c = c2 / c3, c1 / c3, c0 / c3
+    shift = a / 3.0
+    p = b - a * a / 3.0
+    q = 2.0 * a**3 / 27.0 - a * b / 3.0 + c
+    disc = (q / 2.0) ** 2 + (p / 3.0) ** 3
+    if disc > 0.0:
+        root = math.sqrt(disc)
+        return [math.cbrt(-q / 2.0 + root) + math.cbrt(-q / 2.0 - root) - shift]
+    if p == 0.0:
+        return [-shift]
+    radius = 2.0 * math.sqrt(-p / 3.0)
+    angle = math.acos(max(-1.0, min(1.0, 3.0 * q / (p * radius)))) / 3.0
+    return [radius * math.cos(angle - 2.0 * math.pi * k / 3.0) - shift for k in range(3)]
 
 
 def _common_rate(

@@ -5,13 +5,14 @@ from __future__ import annotations
 import math
 from dataclasses import replace
 
+import numpy as np
 import pytest
 from hypothesis import assume, given, settings
 from hypothesis import strategies as st
 from ruckig import Synchronization
 
 from shaping.envelope import Bound, Envelope, Limits
-from shaping.shaper import Mode, Shaped, Shaper, StopKind
+from shaping.shaper import Mode, Shaped, Shaper, StopKind, real_cubic_roots
 from tests.shaping.conftest import CART_GEOMETRY, CART_LIMITS
 from tests.shaping.oracle import ruckig_velocity
 
@@ -214,3 +215,21 @@ def test_the_binding_limit_is_reported() -> None:
     assert run(shaper, 3.0, 0.0, 0.2)[-1].bound is Bound.SPEED
     settled = run(shaper, 0.9, 0.0, 3.0)[-1]
     assert settled.bound is None and settled.settled and settled.accel_use == 0.0
+
+
+coefficient = st.one_of(st.just(0.0), st.floats(-5.0, -1e-3), st.floats(1e-3, 5.0))
+
+
+@given(st.lists(coefficient, min_size=4, max_size=4), st.booleans())
+def test_closed_form_cubic_roots_agree_with_numpy(coefficients: list[float], quadratic: bool) -> None:
+    # reference: numpy.roots (eigenvalues of the companion matrix), a general-purpose library
+    if quadratic:
+        coefficients[0] = 0.0
+    assume(max(map(abs, coefficients)) > 1e-3)
+    ours = real_cubic_roots(*coefficients)
+    reference = [r.real for r in np.roots(coefficients) if abs(r.imag) < 1e-9]
+    polynomial = np.poly1d(coefficients)
+    for root in reference:
+        nearest = min(ours, key=lambda x: abs(x - root))
+        # near a double root the root itself is ill-conditioned; the polynomial's value is what must vanish
+        assert abs(polynomial(nearest)) <= 1e-8 * max(1.0, *map(abs, coefficients)) or abs(nearest - root) < 1e-6
