@@ -156,6 +156,10 @@ class Ramp:
         """Times at which the jerk changes: every segment's start, and the end."""
         return [*self._starts, self.duration]
 
+    def peak_accel(self) -> float:
+        """The largest |a| on the way: a is linear within a segment, so at a segment's start (it ends at 0)."""
+        return max((abs(a) for _, a in self._states), default=0.0)
+
     def travel(self) -> float:
         """Integral of v over the plan (metres for a speed ramp, radians for a turn-rate ramp)."""
         total = 0.0

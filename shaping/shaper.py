@@ -88,10 +88,6 @@ def turn_limits(limits: Limits, stop: StopKind | None = None) -> AxisLimits:
     return AxisLimits(accel, accel, jerk)
 
 
-def _scaled(limits: AxisLimits, factor: float) -> AxisLimits:
-    return AxisLimits(limits.accel * factor, limits.decel * factor, limits.jerk)
-
-
 def _speed_bound_along(v0: float, v1: float, limits: AxisLimits) -> float:
     """The acceleration bound that holds on the whole way from v0 to v1 (both bounds where it crosses zero)."""
     if v0 * v1 < 0.0:
@@ -172,12 +168,15 @@ _Sample = tuple[float, float, float, float, float, float]
 class _AxesMotion:
     """Two separately planned ramps (time-synchronized or independent)."""
 
-    __slots__ = ("speed", "turn", "duration")
+    __slots__ = ("speed", "turn", "duration", "end", "provisional")
 
-    def __init__(self, speed: Ramp, turn: Ramp) -> None:
+    def __init__(self, speed: Ramp, turn: Ramp, provisional: bool = False) -> None:
         self.speed = speed
         self.turn = turn
         self.duration = max(speed.duration, turn.duration)
+        self.end = (speed.target, turn.target)
+        # planned with what one axis's present acceleration leaves the other: worth planning again next cycle
+        self.provisional = provisional
 
     def box(self) -> tuple[tuple[float, float], tuple[float, float]]:
         """The ranges of v and omega that the way stays in."""
@@ -187,6 +186,10 @@ class _AxesMotion:
         """Times at which either axis changes its jerk, from 0 to the end."""
         return sorted({0.0, *self.speed.joints(), *self.turn.joints()})
 
+    def peak_accels(self) -> tuple[float, float]:
+        """The largest |a| and |alpha| on the way (not necessarily at the same moment)."""
+        return self.speed.peak_accel(), self.turn.peak_accel()
+
     def sample(self, t: float) -> _Sample:
         return self.speed.sample(t) + self.turn.sample(t)
 
@@ -194,18 +197,20 @@ class _AxesMotion:
 class _LineMotion:
     """Both axes on one scalar ramp sigma: 0 -> 1 along the straight line from the start to the target."""
 
-    __slots__ = ("sigma", "start", "step", "target", "duration")
+    __slots__ = ("sigma", "start", "step", "end", "duration")
 
-    def __init__(self, sigma: Ramp, start: tuple[float, float], target: tuple[float, float]) -> None:
+    provisional = False
+
+    def __init__(self, sigma: Ramp, start: tuple[float, float], end: tuple[float, float]) -> None:
         self.sigma = sigma
         self.start = start
-        self.target = target
-        self.step = (target[0] - start[0], target[1] - start[1])
+        self.end = end
+        self.step = (end[0] - start[0], end[1] - start[1])
         self.duration = sigma.duration
 
     def sample(self, t: float) -> _Sample:
         if t >= self.duration:
-            return self.target[0], 0.0, 0.0, self.target[1], 0.0, 0.0
+            return self.end[0], 0.0, 0.0, self.end[1], 0.0, 0.0
         sigma, rate, change = self.sigma.sample(t)
         dv, dw = self.step
         return self.start[0] + dv * sigma, dv * rate, dv * change, self.start[1] + dw * sigma, dw * rate, dw * change
@@ -219,12 +224,51 @@ class _LineMotion:
     def joints(self) -> list[float]:
         return sorted({0.0, *self.sigma.joints()})
 
+    def peak_accels(self) -> tuple[float, float]:
+        """The largest |a| and |alpha| on the way; on a line they peak together."""
+        peak = self.sigma.peak_accel()
+        return abs(self.step[0]) * peak, abs(self.step[1]) * peak
+
 
 _REST = _AxesMotion(standstill(0.0), standstill(0.0))
 
 
+def _ramp_or_wait(state: tuple[float, float], target: float, limits: AxisLimits) -> Ramp:
+    """The axis's ramp, or, when its share of the wheels' budget is nothing for now, holding still (it is not
+    accelerating then: what it leaves the other axis is at least its own present acceleration)."""
+    if max(limits.accel, limits.decel) <= 0.0 and state[1] == 0.0:
+        return standstill(state[0])
+    return plan_ramp(*state, target, limits)
+
+
+def _toward_zero(start: float, end: float) -> float:
+    """Of two values of one rate, the one nearer zero if they have one sign, else zero."""
+    if start * end <= 0.0:
+        return 0.0
+    return start if abs(start) <= abs(end) else end
+
+
+def _corner(start: tuple[float, float], target: tuple[float, float]) -> tuple[float, float]:
+    """A point from which, and to which, straight ways from rest to `target` stay inside the envelope.
+
+    Every limit of the envelope only grows with |v| and |omega| on each side of zero (speeds, turn rate, wheel
+    rates, |v x omega|). On the straight way from `start` to the corner neither |v| nor |omega| grows and no sign
+    changes, so each point is dominated by `start`; from the corner to `target` they only grow towards the target's,
+    so each point is dominated by `target`. Both ends being inside, so is the whole way. (The straight way from
+    start to target itself can leave: |v x omega| <= limit is not a convex set.)
+    """
+    return _toward_zero(start[0], target[0]), _toward_zero(start[1], target[1])
+
+
 class Shaper:
-    """Stateful shaping of a stream of (v, omega) requests; the caller supplies every time step."""
+    """Stateful shaping of a stream of (v, omega) requests; the caller supplies every time step.
+
+    Invariant: the plan in force keeps every limit along its whole way. A new plan replaces it only after its whole
+    way has been checked (`_way_breaks`); when no candidate passes, the plan in force goes on and the re-plan is
+    tried again next cycle. Progress: every plan ends at rest in acceleration, and from rest the straight line to
+    the target, or the way through the corner point (`_corner`), always passes, so the output reaches the enveloped
+    target of the last request in finite time.
+    """
 
     def __init__(self, geometry: Geometry, limits: Limits, mode: Mode = Mode.SYNCED) -> None:
         self.envelope = Envelope(geometry, limits)
@@ -238,11 +282,12 @@ class Shaper:
         """Back to rest with no stop pending: every ramp starts again from zero."""
         self._motion: _AxesMotion | _LineMotion = _REST
         self._t = 0.0
-        self._target = (0.0, 0.0)
+        self._target = (0.0, 0.0)  # the enveloped request in force
+        self._aim = (0.0, 0.0)  # where the plan in force ends: the target, or a point on the way to it
         self._request = (0.0, 0.0)
         self._stop: StopKind | None = None
-        self._bound: Bound | None = None
-        self._detour = False  # the current plan ends short of the target (see the module docstring)
+        self._bound: Bound | None = None  # the envelope limit that cut the request, if any
+        self._held_by: Bound | None = None  # the limit that keeps the plan in force from heading to the target
 
     @property
     def stopping(self) -> StopKind | None:
@@ -253,12 +298,12 @@ class Shaper:
         order = (None, StopKind.CONTROLLED, StopKind.FAST, StopKind.IMMEDIATE)
         if order.index(kind) <= order.index(self._stop):
             return
-        if kind is StopKind.IMMEDIATE:
-            self._motion, self._t = _REST, 0.0
-        else:
-            self._replan((0.0, 0.0), stop=kind)
         self._stop = kind
         self._target = (0.0, 0.0)
+        if kind is StopKind.IMMEDIATE:
+            self._motion, self._t, self._aim, self._held_by = _REST, 0.0, (0.0, 0.0), None
+        else:
+            self._replan()
 
     def step(self, dt_s: float, v_req_mps: float, omega_req_radps: float) -> Shaped:
         """Take the request now, advance by dt_s, and return the shaped command at the end of the step."""
@@ -267,42 +312,69 @@ class Shaper:
         rejected = not (math.isfinite(v_req_mps) and math.isfinite(omega_req_radps))
         if not rejected:
             self._request = (v_req_mps, omega_req_radps)
+        changed = False
         if self._stop is None:
             clamped = self.envelope.clamp(*self._request)
             self._bound = clamped.bound
             target = (clamped.v_mps, clamped.omega_radps)
-            if target != self._target or (self._detour and self._t >= self._motion.duration):
-                self._replan(target, stop=None)
-                self._target = target
+            changed, self._target = target != self._target, target
+        # a new target, a plan held back (or provisional) last cycle, or the end of a detour: plan again
+        if changed or self._held_by is not None or (self._aim != self._target and self._ended()):
+            self._replan()
         self._t += dt_s
         return self._output(rejected)
 
     # -- planning -------------------------------------------------------------------------------------------------
 
-    def _replan(self, target: tuple[float, float], stop: StopKind | None) -> None:
+    def _ended(self) -> bool:
+        """Whether the plan in force has arrived (at its aim, with zero acceleration)."""
+        return self._t >= self._motion.duration
+
+    def _replan(self) -> None:
+        """Replace the plan in force by the first candidate whose whole way keeps every limit; else keep it."""
+        target, stop = self._target, self._stop
         v, a, _, w, alpha, _ = self._motion.sample(self._t)
-        self._t = 0.0
-        self._detour = False
-        self._motion = self._plan((v, a), (w, alpha), target, stop)
-        if stop is not None or self._way_inside(self._motion):
-            return
         start = ((v, a), (w, alpha))
+        direct = self._plan(*start, target, stop)
+        broken = self._way_breaks(direct)
+        if broken is None:
+            self._accept(direct, None)
+            return
+        # The way to the whole target leaves the envelope: the largest same-curvature part of it whose way stays
+        # inside (most ways leave by a hair: 63/64 first, then bisection), from where the rest is a straight line.
+        # A stop's target is the origin, which has no smaller part.
+        detour: _AxesMotion | _LineMotion | None = None
+        if target != (0.0, 0.0):
+            detour = self._part_way(start, target, _NEAR_SHARE)
+            inside, outside = 0.0, _NEAR_SHARE
+            for _ in range(0 if detour else _SHRINK_STEPS):
+                middle = 0.5 * (inside + outside)
+                candidate = self._part_way(start, target, middle)
+                if candidate is None:
+                    outside = middle
+                else:
+                    inside, detour = middle, candidate
+        if detour is None and a == 0.0 and alpha == 0.0:
+            # from rest, through the corner point the way always stays inside (see _corner)
+            detour = self._part_way(start, _corner((v, w), target), 1.0)
+        if detour is not None:
+            self._accept(detour, broken)
+        else:
+            self._held_by = broken  # the plan in force goes on (it keeps every limit); try again next cycle
 
-        def plan_share(share: float) -> _AxesMotion | _LineMotion | None:
-            motion = self._plan(*start, (target[0] * share, target[1] * share), None)
-            return motion if self._way_inside(motion) else None
+    def _part_way(
+        self, start: tuple[tuple[float, float], tuple[float, float]], target: tuple[float, float], share: float,
+    ) -> _AxesMotion | _LineMotion | None:
+        """The plan to share x target, if its way keeps every limit."""
+        motion = self._plan(*start, (target[0] * share, target[1] * share), self._stop)
+        return None if self._way_breaks(motion) else motion
 
-        detour = plan_share(_NEAR_SHARE)  # most ways leave the envelope by a hair
-        inside, outside = 0.0, _NEAR_SHARE
-        for _ in range(0 if detour else _SHRINK_STEPS):
-            middle = 0.5 * (inside + outside)
-            candidate = plan_share(middle)
-            if candidate is None:
-                outside = middle
-            else:
-                inside, detour = middle, candidate
-        self._motion = detour or self._plan(*start, (0.0, 0.0), None)
-        self._detour = True
+    def _accept(self, motion: _AxesMotion | _LineMotion, held_by: Bound | None) -> None:
+        self._motion, self._t, self._aim = motion, 0.0, motion.end
+        if motion.provisional:
+            self._held_by = Bound.WHEEL_ACCEL
+        else:
+            self._held_by = held_by if motion.end != self._target else None
 
     def _plan(
         self, speed_state: tuple[float, float], turn_state: tuple[float, float], target: tuple[float, float],
@@ -315,12 +387,12 @@ class Shaper:
                 return self._plan_line(speed_state, turn_state, target, sigma_rate, speed, turn)
         return self._plan_axes(speed_state, turn_state, target, speed, turn)
 
-    def _way_inside(self, motion: _AxesMotion | _LineMotion) -> bool:
-        """Whether the plan's way stays inside the envelope.
+    def _way_breaks(self, motion: _AxesMotion | _LineMotion) -> Bound | None:
+        """The first limit the plan's way breaks, or None when it keeps them all.
 
-        Exact for the linear limits: within a constant-jerk piece every rate is a quadratic in time, so speed, turn
-        rate and each wheel's rate peak at a piece's end or at their vertex. The sideways product v * omega is
-        checked at the same points and mid-piece.
+        Exact: within a constant-jerk piece every rate is a quadratic in time, so speed, turn rate and each wheel's
+        rate peak at a piece's end or at their vertex; the sideways product v * omega is a quartic whose extremes
+        are found in closed form; the wheel accelerations are linear within a piece, so they peak at its ends.
         """
         limits, geometry = self.envelope.limits, self.envelope.geometry
         half_track = 0.5 * geometry.track_width_m
@@ -328,21 +400,29 @@ class Shaper:
         speed, reverse = limits.speed_mps * _SLACK, limits.reverse_speed_mps * _SLACK
         turn = limits.turn_rate_radps * _SLACK
         sideways = math.inf if limits.sideways_accel_mps2 is None else limits.sideways_accel_mps2 * _SLACK
-        # Cheap and sufficient first: the whole box the way stays in is inside (each limit at the box's worst corner).
+        rim_accel = math.inf if limits.wheel_accel_radps2 is None else (
+            limits.wheel_accel_radps2 * geometry.wheel_radius_m * _SLACK)
+        # Cheap and sufficient first: the whole box the way stays in is inside (each limit at the box's worst
+        # corner), and so are the largest accelerations of both axes at once.
         (v_low, v_high), (w_low, w_high) = motion.box()
         fastest, sharpest = max(-v_low, v_high), max(-w_low, w_high)
+        peak_a, peak_alpha = motion.peak_accels()
         if (
             v_high <= speed
             and -v_low <= reverse
             and sharpest <= turn
             and fastest + sharpest * half_track <= rim_speed
             and fastest * sharpest <= sideways
+            and peak_a + peak_alpha * half_track <= rim_accel
         ):
-            return True
+            return None
         joints = motion.joints()
         for t0, t1 in itertools.pairwise(joints):
             piece = t1 - t0
             v, a, jerk, w, alpha, turn_jerk = motion.sample(t0)
+            a_end, alpha_end = a + jerk * piece, alpha + turn_jerk * piece
+            if max(abs(a) + abs(alpha) * half_track, abs(a_end) + abs(alpha_end) * half_track) > rim_accel:
+                return Bound.WHEEL_ACCEL
             times = [0.0, piece]
             for weight_v, weight_w in ((1.0, 0.0), (0.0, 1.0), (1.0, -half_track), (1.0, half_track)):
                 curve = weight_v * jerk + weight_w * turn_jerk
@@ -354,15 +434,19 @@ class Shaper:
             for tau in times:
                 v_at = v + a * tau + 0.5 * jerk * tau * tau
                 w_at = w + alpha * tau + 0.5 * turn_jerk * tau * tau
-                if v_at > speed or -v_at > reverse or abs(w_at) > turn:
-                    return False
+                if v_at > speed:
+                    return Bound.SPEED
+                if -v_at > reverse:
+                    return Bound.REVERSE_SPEED
+                if abs(w_at) > turn:
+                    return Bound.TURN_RATE
                 if abs(v_at) + abs(w_at) * half_track > rim_speed:
-                    return False
+                    return Bound.WHEEL_RATE
                 fastest, sharpest = max(fastest, abs(v_at)), max(sharpest, abs(w_at))
             if fastest * sharpest > sideways:
                 if _peak_product((v, a, 0.5 * jerk), (w, alpha, 0.5 * turn_jerk), piece) > sideways:
-                    return False
-        return True
+                    return Bound.SIDEWAYS_ACCEL
+        return None
 
     def _plan_line(
         self, speed_state: tuple[float, float], turn_state: tuple[float, float], target: tuple[float, float],
@@ -396,23 +480,29 @@ class Shaper:
         self, speed_state: tuple[float, float], turn_state: tuple[float, float], target: tuple[float, float],
         speed: AxisLimits, turn: AxisLimits,
     ) -> _AxesMotion:
-        speed, turn = self._share_wheel_accel(speed_state, turn_state, target, speed, turn)
-        speed_ramp = plan_ramp(*speed_state, target[0], speed)
-        turn_ramp = plan_ramp(*turn_state, target[1], turn)
+        speed, turn, provisional = self._share_wheel_accel(speed_state, turn_state, target, speed, turn)
+        speed_ramp = _ramp_or_wait(speed_state, target[0], speed)
+        turn_ramp = _ramp_or_wait(turn_state, target[1], turn)
         if self.mode is Mode.SYNCED:
             duration = max(speed_ramp.duration, turn_ramp.duration)
             speed_ramp = stretch_ramp(speed_ramp, speed, duration)
             turn_ramp = stretch_ramp(turn_ramp, turn, duration)
-        return _AxesMotion(speed_ramp, turn_ramp)
+        return _AxesMotion(speed_ramp, turn_ramp, provisional)
 
     def _share_wheel_accel(
         self, speed_state: tuple[float, float], turn_state: tuple[float, float], target: tuple[float, float],
         speed: AxisLimits, turn: AxisLimits,
-    ) -> tuple[AxisLimits, AxisLimits]:
-        """Lower the body limits just enough that |a| + |alpha| W/2 <= wheel_accel * r whatever each axis does."""
+    ) -> tuple[AxisLimits, AxisLimits, bool]:
+        """Lower the body limits just enough that |a| + |alpha| W/2 <= wheel_accel * r all along the way.
+
+        Each axis gets a share of the wheels' acceleration budget. An axis already accelerating harder than its
+        share can only come down at its jerk limit, so meanwhile the other axis may use only what is left now; such
+        a plan is provisional (True): planned again each cycle, the share left grows as the busy axis comes down.
+        A ramp's |acceleration| never exceeds the larger of its start and its bound, so the sum stays in budget.
+        """
         wheel_accel = self.envelope.limits.wheel_accel_radps2
         if wheel_accel is None:
-            return speed, turn
+            return speed, turn, False
         geometry = self.envelope.geometry
         rim_accel = wheel_accel * geometry.wheel_radius_m
         half_track = 0.5 * geometry.track_width_m
@@ -420,8 +510,21 @@ class Shaper:
         turn_moves = turn_state != (target[1], 0.0)
         speed_need = max(speed.accel, speed.decel) if speed_moves else 0.0
         turn_need = turn.accel * half_track if turn_moves else 0.0
-        factor = min(1.0, rim_accel / (speed_need + turn_need)) if speed_need + turn_need > 0.0 else 1.0
-        return _scaled(speed, factor), _scaled(turn, factor)
+        if speed_need + turn_need <= rim_accel:
+            return speed, turn, False
+        factor = rim_accel / (speed_need + turn_need)
+        speed_now, turn_now = abs(speed_state[1]), abs(turn_state[1]) * half_track
+        speed_cap, turn_cap = factor * speed_need, factor * turn_need
+        provisional = True
+        if turn_now > turn_cap:
+            speed_cap = max(0.0, rim_accel - turn_now)
+        elif speed_now > speed_cap:
+            turn_cap = max(0.0, rim_accel - speed_now)
+        else:
+            provisional = False
+        return (AxisLimits(min(speed.accel, speed_cap), min(speed.decel, speed_cap), speed.jerk),
+                AxisLimits(min(turn.accel, turn_cap / half_track), min(turn.decel, turn_cap / half_track), turn.jerk),
+                provisional)
 
     # -- output ---------------------------------------------------------------------------------------------------
 
@@ -431,14 +534,19 @@ class Shaper:
         speed, turn = self._axis_limits[self._stop]
         left, right = self.envelope.geometry.to_wheels(v, w)
         accel_use = max(abs(a) / speed.bound(v, a), abs(alpha) / turn.accel)
-        bound = self._bound
         wheel_accel_use = 0.0
         if limits.wheel_accel_radps2 is not None:
             left_accel, right_accel = self.envelope.geometry.to_wheels(a, alpha)
             wheel_accel_use = max(abs(left_accel), abs(right_accel)) / limits.wheel_accel_radps2
         jerk_use = max(abs(j) / speed.jerk, abs(turn_jerk) / turn.jerk)
-        if bound is None or self._stop is not None:
-            bound = None
+        # What binds now: an edge of the envelope the output is on; else the limit that holds the plan back from
+        # the target, or that cut the request; else the ramp's own acceleration or jerk limit.
+        bound = None
+        if self._stop is None:
+            edge_use, bound = self.envelope.usage(v, w)
+            if edge_use < _AT_LIMIT:
+                bound = self._held_by or self._bound
+        if bound is None:
             if max(accel_use, wheel_accel_use) >= _AT_LIMIT:
                 bound = Bound.WHEEL_ACCEL if wheel_accel_use > accel_use else Bound.ACCEL
             elif jerk_use >= _AT_LIMIT:
@@ -462,5 +570,5 @@ class Shaper:
             rejected=rejected,
             stopping=self._stop,
             immediate_zero=self._stop is StopKind.IMMEDIATE,
-            settled=self._t >= self._motion.duration,
+            settled=self._ended() and self._aim == self._target and self._held_by is None,
         )
