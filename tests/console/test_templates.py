@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import math
+import re
 from pathlib import Path
 
 import pytest
@@ -158,8 +159,14 @@ def test_templates_the_simulated_robot_cannot_speak(command_format, stop_format,
         TemplateRobotCodec(template, telemetry_format)
 
 
-def test_demo_template_passes_the_check():
-    check_robot_side(DEMO, DEMO_TELEMETRY)
+def test_demo_template_passes_the_check_and_its_telemetry_reads_back_with_the_standard_library():
+    assert check_robot_side(DEMO, DEMO_TELEMETRY) == DEMO_TELEMETRY  # the format the simulated robot will use
+    # independent of our codecs: Python's own str.format renders the demo firmware's line, re reads it back
+    line = DEMO_TELEMETRY.format(seq=42, left=-1.5, right=2.25, battery_v=12.4, watchdog=0, fault=1)
+    match = re.fullmatch(DEMO.telemetry_regex, line)
+    assert match is not None
+    assert (int(match["seq"]), float(match["left"]), float(match["right"])) == (42, -1.5, 2.25)
+    assert (float(match["battery_v"]), match["watchdog"], match["fault"]) == (12.4, "0", "1")
 
 
 @pytest.mark.parametrize(

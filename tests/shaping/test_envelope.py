@@ -48,7 +48,9 @@ def test_requests_inside_pass_unchanged_and_outside_land_on_the_boundary(v: floa
         assert (clamped.v_mps, clamped.omega_radps, clamped.bound) == (v, omega, None)
     else:
         assert clamped.bound is not None
-        assert ENVELOPE.usage(clamped.v_mps, clamped.omega_radps)[0] == pytest.approx(1.0, rel=1e-12)
+        # on the boundary (limits written out in `inside`): in, and a hair further along the same ray, out
+        assert inside(clamped.v_mps, clamped.omega_radps, slack=1e-12)
+        assert not inside(clamped.v_mps * (1 + 1e-9), clamped.omega_radps * (1 + 1e-9), slack=0.0)
 
 
 @pytest.mark.parametrize(

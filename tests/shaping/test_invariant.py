@@ -1,6 +1,6 @@
 """The shaper's invariant, checked from outside: every emitted sample keeps every limit of the profile, for any
-request sequence, at any rate from 10 to 1000 Hz, in both modes, and the output always arrives at the enveloped
-target of the last request.
+request sequence, at any rate from 10 to 1000 Hz (with jittered time steps), in both modes, and the output always
+arrives at the enveloped target of the last request.
 
 Nothing here uses the project's envelope helpers: the limits are written out from the unicycle model of a
 differential drive, v = r (wR + wL) / 2 and omega = r (wR - wL) / W, so a wheel turns at (v -+ omega W / 2) / r and
@@ -152,9 +152,10 @@ def _arrival_allowance_s(lim: Limits) -> float:
 
 
 def drive(robot: Robot, mode: Mode, rate_hz: float, sequence: list[Request], stops: dict[int, StopKind],
-          use: dict[str, float]) -> tuple[list[str], Shaped, tuple[float, float]]:
+          use: dict[str, float], jitter: list[float]) -> tuple[list[str], Shaped, tuple[float, float]]:
     """Run a trace checking every sample (a stop that has come to rest is followed by a re-arm), then hold the
-    last request until the output has settled. Returns what broke, the last output and the enveloped target."""
+    last request until the output has settled. Time steps are the period times the jitter factors in turn.
+    Returns what broke, the last output and the enveloped target."""
     lim = robot.limits
     shaper = Shaper(Geometry(robot.r, robot.track), lim, mode)
     dt = 1.0 / rate_hz
@@ -175,7 +176,7 @@ def drive(robot: Robot, mode: Mode, rate_hz: float, sequence: list[Request], sto
         for _ in range(max(1, round(hold_s * rate_hz))):
             if cycle in stops:
                 shaper.stop(stops[cycle])
-            out = shaper.step(dt, v, w)
+            out = shaper.step(dt * jitter[cycle % len(jitter)], v, w)
             cycle += 1
             take(out)
             if out.stopping is not None and out.settled:
@@ -183,7 +184,7 @@ def drive(robot: Robot, mode: Mode, rate_hz: float, sequence: list[Request], sto
     if shaper.stopping is not None:
         shaper.reset()
     for _ in range(round(_arrival_allowance_s(lim) / dt)):
-        out = shaper.step(dt, v, w)
+        out = shaper.step(dt * jitter[cycle % len(jitter)], v, w)
         cycle += 1
         take(out)
         if out.settled:
@@ -193,9 +194,9 @@ def drive(robot: Robot, mode: Mode, rate_hz: float, sequence: list[Request], sto
 
 
 def assert_invariant(robot: Robot, mode: Mode, rate_hz: float, sequence: list[Request],
-                     stops: dict[int, StopKind] | None = None) -> None:
+                     stops: dict[int, StopKind] | None = None, jitter: list[float] | None = None) -> None:
     use: dict[str, float] = {}
-    broken, last, goal = drive(robot, mode, rate_hz, sequence, stops or {}, use)
+    broken, last, goal = drive(robot, mode, rate_hz, sequence, stops or {}, use, jitter or [1.0])
     for label, names in (("sideways", ["sideways"]), ("wheel rate", ["left wheel rate", "right wheel rate"]),
                          ("wheel accel", ["left wheel accel", "right wheel accel"])):
         target(max(use.get(name, 0.0) for name in names), label=label)
@@ -226,12 +227,13 @@ SETTINGS = settings(max_examples=300, deadline=None, suppress_health_check=[Heal
 
 @SETTINGS
 @given(st.data(), st.sampled_from(list(Mode)), st.sampled_from(RATES_HZ),
-       st.dictionaries(st.integers(0, 300), st.sampled_from([StopKind.CONTROLLED, StopKind.FAST]), max_size=2))
+       st.dictionaries(st.integers(0, 300), st.sampled_from([StopKind.CONTROLLED, StopKind.FAST]), max_size=2),
+       st.lists(st.floats(0.5, 1.5), min_size=1, max_size=8))
 def test_any_trace_keeps_every_limit_and_arrives(
-    data: st.DataObject, mode: Mode, rate_hz: float, stops: dict[int, StopKind]
+    data: st.DataObject, mode: Mode, rate_hz: float, stops: dict[int, StopKind], jitter: list[float]
 ) -> None:
     robot = data.draw(robots())
-    assert_invariant(robot, mode, rate_hz, data.draw(traces(robot)), stops)
+    assert_invariant(robot, mode, rate_hz, data.draw(traces(robot)), stops, jitter)
 
 
 @SETTINGS

@@ -60,8 +60,10 @@ def test_diameter_ratio_is_the_rim_speed_ratio_of_the_curved_leg() -> None:
     beta = side / radius
     result = umbmark(side, track, [_square_end(side, 0.0, beta, True)], [_square_end(side, 0.0, beta, False)])
     assert result.wheel_diameter_ratio == pytest.approx(ratio, abs=2e-4)
-    assert 0.5 * (result.c_left + result.c_right) == pytest.approx(1.0, abs=1e-4)   # mean diameter kept
-    assert result.c_right / result.c_left == pytest.approx(result.wheel_diameter_ratio)
+    # against the injected truth: diameters in the ratio R / L = ratio with their mean kept (Borenstein and Feng
+    # 1996, section on the correction factors) are 2 / (ratio + 1) and 2 ratio / (ratio + 1) of the nominal
+    assert result.c_left == pytest.approx(2.0 / (ratio + 1.0), abs=2e-4)
+    assert result.c_right == pytest.approx(2.0 * ratio / (ratio + 1.0), abs=2e-4)
 
 
 def test_turn_error_gives_the_track_width_factor() -> None:
