@@ -34,3 +34,23 @@ class RobotFault(DiffdeckError):
     """The robot reported a fault or a watchdog trip."""
 
     exit_code = 4
+
+
+class LinkOpenError(DiffdeckError):
+    """The link could not be opened at all (no such device, permission, nothing listening): nothing was sent."""
+
+    exit_code = 5
+
+
+class OutputError(DiffdeckError):
+    """An output (a file, a folder, standard output) cannot be written; what was there before is left as it was."""
+
+    exit_code = 6
+
+    def __init__(self, target: str, reason: str) -> None:
+        self.target = target
+        self.reason = reason
+        super().__init__(f"{target}: {reason}")
+
+    def __reduce__(self) -> tuple[type, tuple[str, str]]:
+        return type(self), (self.target, self.reason)
