@@ -20,6 +20,7 @@ naming the file and the reason, never an OSError traceback.
 from __future__ import annotations
 
 import os
+import re
 import stat
 import sys
 import tempfile
@@ -31,6 +32,9 @@ from typing import IO, Any
 from console.errors import InputError, OutputError
 
 STDOUT = "-"
+# A number in a CSV input: plain decimal or exponent notation. float() alone would also take "1_0" (as 10), "nan",
+# "inf" and "infinity", none of which a trace or a recording should hold.
+PLAIN_NUMBER = re.compile(r"\s*[-+]?(?:\d+\.?\d*|\.\d+)(?:[eE][-+]?\d+)?\s*")
 
 
 def _kind(mode: int) -> str:
@@ -64,6 +68,21 @@ def check_output(path: str | Path) -> Path:
         raise OutputError(str(target), f"the folder {folder} does not exist")
     if not os.access(folder, os.W_OK | os.X_OK):
         raise OutputError(str(target), f"the folder {folder} is not writable")
+    return target
+
+
+def check_stream_target(path: str | Path) -> Path:
+    """For a file written as it goes (a recording): a regular file, a FIFO (someone reads the rows live) or a
+    symlink to either may be written into; a folder or a device may not. OutputError saying why not."""
+    target = Path(path)
+    try:
+        mode = os.stat(target).st_mode
+    except FileNotFoundError:
+        return target
+    except OSError as error:
+        raise OutputError(str(target), f"cannot be checked ({reason(error)})") from None
+    if not (stat.S_ISREG(mode) or stat.S_ISFIFO(mode)):
+        raise OutputError(str(target), f"exists and is {_kind(mode)}; give the path of a regular file")
     return target
 
 
@@ -167,7 +186,8 @@ def read_input(path: str | Path, what: str, *, max_bytes: int | None = None) -> 
     try:
         status = os.fstat(fd)
         if not stat.S_ISREG(status.st_mode):
-            raise InputError(file, "file", file, f"is {_kind(status.st_mode)}; give the path of {what} (a regular file)")
+            raise InputError(file, "file", file, f"is {_kind(status.st_mode)}; give the path of {what} "
+                                                 "(a regular file)")
         if max_bytes is not None and status.st_size > max_bytes:
             raise InputError(file, "file", f"{status.st_size} bytes", f"at most {max_bytes} bytes for {what}")
         chunks = []

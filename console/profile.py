@@ -15,6 +15,7 @@ import re
 import string
 import subprocess
 import sys
+import urllib.parse
 import tomllib
 from dataclasses import dataclass, field, fields
 from pathlib import Path
@@ -144,6 +145,7 @@ RANGES: dict[str, tuple[float, float]] = {
 PLAIN_SPEC = re.compile(r"(?:.?[<>=^])?[-+ ]?z?#?0?(?P<width>\d*)[,_]?(?:\.(?P<precision>\d+))?(?P<type>[a-zA-Z%]?)")
 REGEX_LINE_BUDGET_S = 0.05    # per adversarial telemetry line; a sane pattern needs microseconds
 REGEX_TOTAL_BUDGET_S = 2.0    # for all of them, starting the trial process included
+NETWORK_SCHEMES = ("socket", "rfc2217")
 BAUD_RANGE = (50, 12_000_000)             # common practice: from the slowest UART rate to fast USB serial adapters
 ENCODER_TICKS_RANGE = (1, 10_000_000)
 SEED_RANGE = (0, 2**63 - 1)
@@ -478,8 +480,31 @@ def _sim(table: _Table, limits: Limits) -> SimConfig:
     return sim
 
 
+def link_url_problem(url: str) -> str | None:
+    """What is wrong with a link URL before anything is opened (None: it looks usable), so that a malformed URL is
+    bad input (exit 2), not a lost link. Host and port are checked for the network schemes; the rest is pyserial's."""
+    allowed = '"sim", a device path such as /dev/ttyUSB0, or a pyserial URL such as socket://host:port'
+    if not url.strip() or any(c.isspace() or not c.isprintable() for c in url):
+        return f"{allowed}, without spaces or control characters"
+    scheme, sep, _ = url.partition("://")
+    if not sep:
+        return None if url == "sim" or url.startswith("/") else f"{allowed} (a device path starts with /)"
+    if scheme.lower() in NETWORK_SCHEMES:
+        parts = urllib.parse.urlsplit(url)
+        try:
+            port = parts.port
+        except ValueError:
+            return f"{scheme}://host:port with a port from 1 to 65535"
+        if not parts.hostname or port is None or not 1 <= port <= 65535:
+            return f"{scheme}://host:port with a host and a port from 1 to 65535"
+    return None
+
+
 def _link(table: _Table, sim: SimConfig, top_command: float) -> LinkConfig:
     url = table.text("url", LINK_DEFAULTS.url)
+    problem = link_url_problem(url)
+    if problem is not None:
+        raise table.error("url", url, problem)
     baud = table.integer("baud", LINK_DEFAULTS.baud, low=BAUD_RANGE[0], high=BAUD_RANGE[1])
     rate_hz = table.number("rate_hz", "Hz", LINK_DEFAULTS.rate_hz, low=RATE_HZ_RANGE[0], high=RATE_HZ_RANGE[1],
                            low_inclusive=True)

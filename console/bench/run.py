@@ -10,7 +10,6 @@ from __future__ import annotations
 
 import enum
 import json
-import os
 import time
 from dataclasses import dataclass
 from datetime import datetime, timezone
@@ -19,6 +18,7 @@ from typing import Any
 
 from console.bench.program import BoundProgram, Program
 from console.errors import InputError, LinkLost
+from console.files import write_atomic
 from console.loop import ControlLoop, SafetyState, Snapshot, StopCause, VirtualClock, WallClock
 from console.profile import Profile
 from console.record import Recorder, sidecar_path
@@ -263,6 +263,4 @@ class BenchRun:
                 for b in self.bound.segments
             ],
         }
-        tmp = side.with_name(side.name + ".tmp")
-        tmp.write_text(json.dumps(meta, indent=2) + "\n", encoding="utf-8")
-        os.replace(tmp, side)
+        write_atomic(side, json.dumps(meta, indent=2) + "\n")

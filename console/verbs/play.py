@@ -176,6 +176,7 @@ def run(args: argparse.Namespace) -> int:
         loop.close()
         stats = loop.stats()
         recorder.close(stats, loop.link_stats())
+        error = error or recorder.problem     # a full disk: the run went on, the recording did not
     print(f"play: {stats.cycles} cycles, {stats.overruns} missed periods, period error p99 "
           f"{stats.period_error_p99_s * 1e3:.3f} ms; recording {record} (+ {sidecar_path(record).name})", flush=True)
     if error is not None:

@@ -11,13 +11,12 @@ import argparse
 import csv
 import io
 import math
-import re
 from dataclasses import dataclass
 from pathlib import Path
 from typing import TextIO
 
 from console.errors import DiffdeckError, InputError
-from console.files import STDOUT, atomic_output, check_output, read_input
+from console.files import PLAIN_NUMBER, STDOUT, atomic_output, check_output, read_input
 from console.profile import RATE_HZ_RANGE, Profile, load_profile
 from shaping.envelope import Bound
 from shaping.ramp import plan_ramp
@@ -37,7 +36,6 @@ BOUND_TEXT = {None: "", **{bound: bound.value for bound in Bound}}
 # micrometre per second) read better than 17. Bound names hold no comma or quote, so no CSV quoting is needed.
 ROW_FORMAT = "%.10g," * (len(OUTPUT_HEADER) - 1) + "%s\n"
 MAX_DURATION_S = 24 * 3600.0  # a day of shaping is 8.6 million rows at 100 Hz: anything longer is a mistake
-PLAIN_NUMBER = re.compile(r"\s*[-+]?(?:\d+\.?\d*|\.\d+)(?:[eE][-+]?\d+)?\s*")
 
 
 @dataclass(frozen=True, slots=True)

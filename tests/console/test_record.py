@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import errno
 import json
 import os
 import platform
@@ -164,3 +165,66 @@ def test_default_path_is_under_recordings_with_profile_name_and_utc_time(tmp_pat
     Recorder(first, profile, "sim").close()
     second = default_path(profile, when)                # never overwrites an earlier session
     assert second != first and second.parent == Path("recordings")
+
+
+class _DiskFillsUp:
+    """The recording's file object, on a disk with `room` bytes left: a write past it is cut short, the next one
+    raises ENOSPC, as write(2) does on a full file system (POSIX.1-2017, write(): "[ENOSPC] There was no free space
+    remaining on the device")."""
+
+    def __init__(self, handle, room: int) -> None:
+        self._handle = handle
+        self._room = room
+
+    def write(self, data) -> int:
+        if self._room <= 0:
+            raise OSError(errno.ENOSPC, os.strerror(errno.ENOSPC))
+        written = self._handle.write(bytes(data[: self._room]))
+        self._room -= written
+        return written
+
+    def __getattr__(self, name: str):
+        return getattr(self._handle, name)
+
+    def __enter__(self):
+        return self
+
+    def __exit__(self, *exc) -> None:
+        self._handle.close()
+
+
+def test_a_full_disk_stops_recording_keeps_whole_rows_and_the_sidecar_says_why(tmp_path: Path) -> None:
+    path = tmp_path / "full.csv"
+    recorder = Recorder(path, load_profile(WREN), "/dev/ttyACM0", flush_s=0.01)
+    recorder._file = _DiskFillsUp(recorder._file, room=1000)     # the header is already written
+    for k in range(200):
+        recorder.put((k * 0.01, 0.1, 0.2, 0.3, 0.4, 0.5, 0.6, 0.7, 0.8, "armed"))
+        if k % 20 == 0:
+            time.sleep(0.03)            # let the writer drain in several batches: some fit, then the disk is full
+    recorder.close()
+    lines = path.read_text(encoding="utf-8").splitlines(keepends=True)
+    assert lines[0] == HEADER + "\n" and len(lines) > 1
+    assert all(line.endswith("\n") and line.count(",") == HEADER.count(",") for line in lines), lines[-1]
+    assert len(lines) - 1 == recorder.written < 200
+    meta = json.loads(sidecar_path(path).read_text(encoding="utf-8"))
+    assert meta["write_error"] == (f"recording stopped after {recorder.written} rows (No space left on device); "
+                                   "the rows before are complete")
+    assert meta["rows_written"] + meta["dropped_rows"] == 200
+    assert recorder.problem is not None and recorder.problem.exit_code == 6
+    assert str(recorder.problem).startswith(f"{path}: recording stopped after ")
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["full.csv", "full.csv.json"]
+
+
+def test_when_even_the_sidecar_cannot_be_written_the_recorder_says_so_and_leaves_no_temporary_file(
+        tmp_path: Path, monkeypatch) -> None:
+    from console import files
+
+    path = tmp_path / "full.csv"
+    recorder = Recorder(path, load_profile(WREN), "/dev/ttyACM0")
+    recorder.put((0.01, 0.1, 0.2, 0.3, 0.4, 0.5, 0.6, 0.7, 0.8, "armed"))
+    real_fdopen = os.fdopen
+    monkeypatch.setattr(files.os, "fdopen", lambda *a, **k: _DiskFillsUp(real_fdopen(*a, **k), room=0))
+    recorder.close()
+    assert str(recorder.problem) == f"{sidecar_path(path)}: cannot be written (No space left on device)"
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["full.csv"]
+    assert path.read_text(encoding="utf-8").splitlines()[1].startswith("0.01,")
