@@ -86,6 +86,31 @@ def check_stream_target(path: str | Path) -> Path:
     return target
 
 
+def make_folders(folder: str | Path) -> list[Path]:
+    """Create `folder` and any missing parents; returns the folders created, outermost first, so that a failed run
+    can take them away again (`remove_folders`). OutputError if one cannot be created or `folder` is not one."""
+    folder = Path(folder)
+    missing = [path for path in (folder, *folder.parents) if not path.exists()][::-1]
+    for index, path in enumerate(missing):
+        try:
+            path.mkdir()
+        except OSError as error:
+            remove_folders(missing[:index])
+            raise OutputError(str(folder), f"the folder cannot be created ({reason(error)})") from None
+    if not folder.is_dir():
+        raise OutputError(str(folder), "exists and is not a folder")
+    return missing
+
+
+def remove_folders(created: list[Path]) -> None:
+    """Remove the folders `make_folders` created, innermost first, as far as they are still empty."""
+    for path in reversed(created):
+        try:
+            path.rmdir()
+        except OSError:
+            return      # not empty (something was written into it) or already gone: leave it and its parents
+
+
 def _new_file_mode(target: Path) -> int:
     """Keep the mode of the file being replaced; a new file gets the usual 0666 less the umask."""
     try:

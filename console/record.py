@@ -26,7 +26,7 @@ import serial
 
 from console import __version__
 from console.errors import OutputError
-from console.files import check_stream_target, reason, write_atomic
+from console.files import check_stream_target, make_folders, reason, remove_folders, write_atomic
 
 if TYPE_CHECKING:
     from console.profile import Profile
@@ -102,11 +102,23 @@ class Recorder:
         self._queue: deque[str] = deque()
         self._closing = threading.Event()
         self._closed = False
-        self.path.parent.mkdir(parents=True, exist_ok=True)
-        check_stream_target(self.path)      # never write into a device or a folder by mistake
-        self._file = open(self.path, "wb", buffering=0)  # unbuffered: each batch of whole lines is one write()
+        try:
+            created = make_folders(self.path.parent)
+        except OutputError as error:
+            raise OutputError(str(self.path), f"its folder {error.target} {error.reason}") from None
         self._complete = 0          # bytes of whole lines in the file: a failed write is cut back to this
-        self._write((",".join(self.columns) + "\n").encode())
+        try:
+            check_stream_target(self.path)      # never write into a device or a folder by mistake
+            self._file = open(self.path, "wb", buffering=0)  # unbuffered: each batch of whole lines is one write()
+            try:
+                self._write((",".join(self.columns) + "\n").encode())
+            except BaseException:
+                self._file.close()
+                self.path.unlink(missing_ok=True)
+                raise
+        except BaseException:
+            remove_folders(created)     # a failed start leaves no empty folder behind
+            raise
         self._thread = threading.Thread(target=self._run, name="diffdeck-recorder", daemon=True)
         self._thread.start()
 

@@ -19,8 +19,7 @@ from console.bench import analysis
 from console.bench.analysis import FopdtFit, StepMetrics, SuggestedLimits
 from console.bench.polarity import PolarityReport, check_polarity
 from console.bench.recording import Recording, Segment
-from console.errors import OutputError
-from console.files import atomic_output, check_output, reason, write_atomic
+from console.files import atomic_output, check_output, make_folders, remove_folders, write_atomic
 from console.record import sidecar_path
 
 DEFAULT_SPEED_ERROR_SHARE = 0.05    # stated tracking error for the suggested limits: 5 % of the top speed
@@ -372,7 +371,7 @@ def write_report(rec: Recording, report: Report, out: Path) -> list[Path]:
     """summary.md, report.json and the figures into `out` (each written whole or not at all, console/files.py).
 
     A folder this call created is removed again when nothing could be written into it."""
-    created = _make_folder(out)
+    created = make_folders(out)
     try:
         for name in (*FIGURES, "report.json", "summary.md"):
             check_output(out / name)
@@ -381,25 +380,6 @@ def write_report(rec: Recording, report: Report, out: Path) -> list[Path]:
                            ("summary.md", markdown(report))):
             paths.append(write_atomic(out / name, text))
     except BaseException:
-        for folder in reversed(created):
-            try:
-                folder.rmdir()
-            except OSError:
-                break       # not empty (something was written) or already gone: leave it
+        remove_folders(created)
         raise
     return paths
-
-
-def _make_folder(out: Path) -> list[Path]:
-    """Create `out` and any missing parents; returns the folders created (outermost first); OutputError if not."""
-    missing = [folder for folder in (out, *out.parents) if not folder.exists()][::-1]
-    for folder in missing:
-        try:
-            folder.mkdir()
-        except OSError as error:
-            for made in reversed(missing[:missing.index(folder)]):
-                made.rmdir()
-            raise OutputError(str(out), f"the folder cannot be created ({reason(error)})") from None
-    if not out.is_dir():
-        raise OutputError(str(out), "exists and is not a folder; give a folder for the report")
-    return missing

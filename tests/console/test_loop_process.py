@@ -18,7 +18,7 @@ from pathlib import Path
 
 import pytest
 
-from console.errors import InputError, LinkOpenError
+from console.errors import InputError, LinkOpenError, OutputError
 from console.loop import SafetyState, StopCause
 from console.loop_process import ENDED, LoopProcess, LoopProcessEnded
 from console.profile import load_profile
@@ -198,6 +198,6 @@ def test_start_up_errors_come_back_as_the_same_one_line_errors(profile, tmp_path
         holder.close()
     blocker = tmp_path / "a-file"
     blocker.write_text("")
-    with pytest.raises(InputError) as unwritable:
+    with pytest.raises(OutputError) as unwritable:      # cannot write the output: exit 6
         LoopProcess(profile, record_path=blocker / "session.csv")
     assert str(blocker / "session.csv") in str(unwritable.value) and "\n" not in str(unwritable.value)

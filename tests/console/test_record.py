@@ -228,3 +228,29 @@ def test_when_even_the_sidecar_cannot_be_written_the_recorder_says_so_and_leaves
     assert str(recorder.problem) == f"{sidecar_path(path)}: cannot be written (No space left on device)"
     assert sorted(p.name for p in tmp_path.iterdir()) == ["full.csv"]
     assert path.read_text(encoding="utf-8").splitlines()[1].startswith("0.01,")
+
+
+def test_play_on_a_disk_that_fills_up_stops_the_robot_and_ends_with_exit_6(tmp_path: Path, monkeypatch,
+                                                                           capsys) -> None:
+    from console.cli import main
+    from console.verbs import play
+
+    class FillingRecorder(Recorder):
+        def __init__(self, *args, **kwargs) -> None:
+            super().__init__(*args, **kwargs)
+            self._file = _DiskFillsUp(self._file, room=3000)
+
+    monkeypatch.setattr(play, "Recorder", FillingRecorder)
+    trace = tmp_path / "trace.csv"
+    trace.write_text("t_s,v_mps,omega_radps\n0.0,0.4,0.0\n1.0,0.0,0.0\n", encoding="utf-8")
+    record = tmp_path / "rec.csv"
+    code = main(["play", str(WREN), str(trace), "--fast", "--yes", "--record", str(record)])
+    out, err = capsys.readouterr()
+    assert code == 6
+    assert err.startswith(f"diffdeck: {record}: recording stopped after ") and err.count("\n") == 1, err
+    assert "play: stopped (program end)" in out          # the run went on to a controlled stop at rest
+    lines = record.read_text(encoding="utf-8").splitlines(keepends=True)
+    assert all(line.endswith("\n") and line.count(",") == lines[0].count(",") for line in lines)
+    meta = json.loads(sidecar_path(record).read_text(encoding="utf-8"))
+    assert meta["write_error"].startswith("recording stopped after ") and meta["dropped_rows"] > 0
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["rec.csv", "rec.csv.json", "trace.csv"]
