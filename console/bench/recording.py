@@ -71,8 +71,8 @@ def _json(path: Path) -> dict[str, Any] | None:
         data = json.loads(path.read_text(encoding="utf-8"))
     except FileNotFoundError:
         return None
-    except (OSError, ValueError) as error:
-        raise _fail(path, "file", path.name, f"a readable JSON sidecar ({error.__class__.__name__})")
+    except (OSError, ValueError, RecursionError) as error:
+        raise _fail(path, "file", path.name, f"a readable JSON sidecar ({error.__class__.__name__})") from None
     return data if isinstance(data, dict) else None
 
 

@@ -6,18 +6,16 @@ ever written or replaced here: the device used (/dev/null) is only ever looked a
 
 from __future__ import annotations
 
-import errno
 import os
 import signal
 import stat
 from pathlib import Path
-from typing import IO, Any
-
 import pytest
 
 from console import files
 from console.cli import Terminated, _raise_terminated
 from console.errors import InputError, OutputError
+from tests.console.faults import DiskFillsUp
 
 
 def names(folder: Path) -> list[str]:
@@ -45,28 +43,9 @@ def test_an_error_while_writing_keeps_the_old_file_and_removes_the_temporary_one
     assert names(tmp_path) == ["out.csv"]
 
 
-class _FullDisk:
-    """A file object over the real temporary file whose write fails as a full disk does."""
-
-    def __init__(self, handle: IO[Any]) -> None:
-        self._handle = handle
-
-    def write(self, data: object) -> int:
-        raise OSError(errno.ENOSPC, os.strerror(errno.ENOSPC))
-
-    def __getattr__(self, name: str) -> Any:
-        return getattr(self._handle, name)
-
-    def __enter__(self) -> _FullDisk:
-        return self
-
-    def __exit__(self, *exc: object) -> None:
-        self._handle.close()
-
-
 def test_a_full_disk_is_one_output_error_and_leaves_nothing(tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> None:
     real_fdopen = os.fdopen
-    monkeypatch.setattr(files.os, "fdopen", lambda *a, **k: _FullDisk(real_fdopen(*a, **k)))
+    monkeypatch.setattr(files.os, "fdopen", lambda *a, **k: DiskFillsUp(real_fdopen(*a, **k)))
     target = tmp_path / "out.csv"
     with pytest.raises(OutputError) as caught:
         files.write_atomic(target, b"rows\n")

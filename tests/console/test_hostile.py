@@ -26,6 +26,7 @@ import pytest
 
 from console import files
 from console.cli import main
+from tests.console.faults import DiskFillsUp
 
 ROOT = Path(__file__).resolve().parents[2]
 WREN = (ROOT / "profiles" / "wren.toml").read_text(encoding="utf-8")
@@ -60,28 +61,9 @@ def with_template(key: str, literal: str) -> str:
 
 # -- faults injected into the output path ------------------------------------------------------------------------
 
-class _Failing:
-    """A file object over the real one whose writes fail with `code` (ENOSPC: a full disk)."""
-
-    def __init__(self, handle: Any, code: int) -> None:
-        self._handle, self._code = handle, code
-
-    def write(self, data: object) -> int:
-        raise OSError(self._code, os.strerror(self._code))
-
-    def __getattr__(self, name: str) -> Any:
-        return getattr(self._handle, name)
-
-    def __enter__(self) -> _Failing:
-        return self
-
-    def __exit__(self, *exc: object) -> None:
-        self._handle.close()
-
-
 def full_disk(monkeypatch: pytest.MonkeyPatch, tmp: Path) -> None:
     real = os.fdopen
-    monkeypatch.setattr(files.os, "fdopen", lambda *a, **k: _Failing(real(*a, **k), errno.ENOSPC))
+    monkeypatch.setattr(files.os, "fdopen", lambda *a, **k: DiskFillsUp(real(*a, **k)))
 
 
 def unwritable_folder(monkeypatch: pytest.MonkeyPatch, tmp: Path) -> None:
@@ -290,6 +272,12 @@ CASES = [
          {"rec.csv": recording()}, full_disk),
     Case("report --json to a full stdout", ("report", REC, "-o", "{tmp}/report", "--json"), 6,
          "standard output: cannot be", {"rec.csv": recording()}, stdout_full, creates="report"),
+    # -- bench programs ---------------------------------------------------------------------------------------------
+    Case("program is a FIFO", ("bench", P, "{tmp}/pipe"), 2, "pipe: file = ", {"robot.toml": WREN, "pipe": "fifo:"}),
+    Case("program nested 2000 deep", ("bench", P, "{tmp}/deep.toml"), 2, "deep.toml: syntax = '': arrays or tables "
+         "nested too deeply", {"robot.toml": WREN, "deep.toml": "x = " + "[" * 2000 + "]" * 2000 + "\n"}),
+    Case("program not TOML", ("bench", P, "{tmp}/bad.toml"), 2, "bad.toml: syntax = ", {"robot.toml": WREN,
+                                                                                        "bad.toml": "x = = 1\n"}),
     # -- links and recordings on a link ---------------------------------------------------------------------------
     Case("play on a missing device", ("play", P, T, "--link", "{tmp}/ttyACM9", "--yes", "--record", O), 5,
          "cannot open the link {tmp}/ttyACM9: No such file or directory", GOOD),

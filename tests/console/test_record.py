@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-import errno
 import json
 import os
 import platform
@@ -22,6 +21,7 @@ import serial
 from console.loop import LoopStats
 from console.profile import load_profile
 from console.record import Recorder, default_path, read_csv, sidecar_path
+from tests.console.faults import DiskFillsUp
 
 ROOT = Path(__file__).resolve().parents[2]
 WREN = ROOT / "profiles" / "wren.toml"
@@ -167,36 +167,10 @@ def test_default_path_is_under_recordings_with_profile_name_and_utc_time(tmp_pat
     assert second != first and second.parent == Path("recordings")
 
 
-class _DiskFillsUp:
-    """The recording's file object, on a disk with `room` bytes left: a write past it is cut short, the next one
-    raises ENOSPC, as write(2) does on a full file system (POSIX.1-2017, write(): "[ENOSPC] There was no free space
-    remaining on the device")."""
-
-    def __init__(self, handle, room: int) -> None:
-        self._handle = handle
-        self._room = room
-
-    def write(self, data) -> int:
-        if self._room <= 0:
-            raise OSError(errno.ENOSPC, os.strerror(errno.ENOSPC))
-        written = self._handle.write(bytes(data[: self._room]))
-        self._room -= written
-        return written
-
-    def __getattr__(self, name: str):
-        return getattr(self._handle, name)
-
-    def __enter__(self):
-        return self
-
-    def __exit__(self, *exc) -> None:
-        self._handle.close()
-
-
 def test_a_full_disk_stops_recording_keeps_whole_rows_and_the_sidecar_says_why(tmp_path: Path) -> None:
     path = tmp_path / "full.csv"
     recorder = Recorder(path, load_profile(WREN), "/dev/ttyACM0", flush_s=0.01)
-    recorder._file = _DiskFillsUp(recorder._file, room=1000)     # the header is already written
+    recorder._file = DiskFillsUp(recorder._file, room=1000)     # the header is already written
     for k in range(200):
         recorder.put((k * 0.01, 0.1, 0.2, 0.3, 0.4, 0.5, 0.6, 0.7, 0.8, "armed"))
         if k % 20 == 0:
@@ -223,7 +197,7 @@ def test_when_even_the_sidecar_cannot_be_written_the_recorder_says_so_and_leaves
     recorder = Recorder(path, load_profile(WREN), "/dev/ttyACM0")
     recorder.put((0.01, 0.1, 0.2, 0.3, 0.4, 0.5, 0.6, 0.7, 0.8, "armed"))
     real_fdopen = os.fdopen
-    monkeypatch.setattr(files.os, "fdopen", lambda *a, **k: _DiskFillsUp(real_fdopen(*a, **k), room=0))
+    monkeypatch.setattr(files.os, "fdopen", lambda *a, **k: DiskFillsUp(real_fdopen(*a, **k), room=0))
     recorder.close()
     assert str(recorder.problem) == f"{sidecar_path(path)}: cannot be written (No space left on device)"
     assert sorted(p.name for p in tmp_path.iterdir()) == ["full.csv"]
@@ -238,7 +212,7 @@ def test_play_on_a_disk_that_fills_up_stops_the_robot_and_ends_with_exit_6(tmp_p
     class FillingRecorder(Recorder):
         def __init__(self, *args, **kwargs) -> None:
             super().__init__(*args, **kwargs)
-            self._file = _DiskFillsUp(self._file, room=3000)
+            self._file = DiskFillsUp(self._file, room=3000)
 
     monkeypatch.setattr(play, "Recorder", FillingRecorder)
     trace = tmp_path / "trace.csv"
