@@ -13,6 +13,7 @@ import pkgutil
 import signal
 import sys
 import tempfile
+import threading
 import traceback
 from datetime import datetime, timezone
 from types import FrameType, ModuleType
@@ -69,8 +70,11 @@ def _raise_terminated(signum: int, frame: FrameType | None) -> None:
 
 
 def _install_ending_signals() -> dict[int, object]:
-    """SIGTERM and SIGHUP raise Terminated where nothing else handles them (a verb may install its own)."""
-    previous = {}
+    """SIGTERM and SIGHUP raise Terminated where nothing else handles them (a verb may install its own); only the
+    main thread may install handlers, so main() called from another thread leaves them as they are."""
+    previous: dict[int, object] = {}
+    if threading.current_thread() is not threading.main_thread():
+        return previous
     for signum in ENDING_SIGNALS:
         if signal.getsignal(signum) is signal.SIG_DFL:
             previous[signum] = signal.signal(signum, _raise_terminated)

@@ -240,6 +240,7 @@ CASES = [
     Case("-o a FIFO", ("shape", P, T, "-o", "{tmp}/pipe"), 6, "pipe: exists and is a FIFO",
          {**GOOD, "pipe": "fifo:"}),
     Case("-o /dev/null", ("shape", P, T, "-o", "/dev/null"), 6, "/dev/null: exists and is a character device", GOOD),
+    Case("-o /dev/stdout", ("shape", P, T, "-o", "/dev/stdout"), 6, "/dev/stdout: exists and is a symlink", GOOD),
     Case("-o on a full disk", ("shape", P, T, "-o", O), 6, "out.csv: cannot be written (No space left on device)",
          {**GOOD, "out.csv": "previous\n"}, full_disk),
     Case("shape to a full stdout", ("shape", P, T), 6, "standard output: cannot be written (No space left", GOOD,
