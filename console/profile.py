@@ -107,6 +107,7 @@ TELEMETRY_RATE_HZ_RANGE = (1.0, 1000.0)
 DEFAULT_STOP_JERK_FACTOR = 4.0
 DEFAULT_SIM_RATE_FACTOR = 1.2
 SECTIONS = ("robot", "geometry", "limits", "units", "link", "sim")
+MAX_NAME = 80
 MAX_PROFILE_BYTES = 1 << 20   # a profile is a few kB; a megabyte is a mistake (or not a profile at all)
 WIRE_RATE_MAX = 2_000_000.0   # PROTOCOL.md section 10: wheel rates travel as +-2000000.000 firmware units
 # Bounds on every number, so that no figure derived from them (ramp times and distances, wheel rates in the firmware
@@ -287,6 +288,9 @@ def load_profile(path: str | Path) -> Profile:
             raise ProfileError(file, f"[{section}]", _Shown(_short(data[section])), f"unknown section ({hint})")
     robot = _required_table(file, data, "robot")
     name = robot.text("name")
+    if len(name) > MAX_NAME or not name.isprintable():
+        raise robot.error("name", name, f"a name of at most {MAX_NAME} characters on one line, without control "
+                                        "characters (it is shown in the console and stored with recordings)")
     robot.finish()
     geometry = _geometry(_required_table(file, data, "geometry"))
     limits = _limits(_required_table(file, data, "limits"), geometry)
