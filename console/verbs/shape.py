@@ -189,10 +189,23 @@ def _size_text(rows: float) -> str:
     return f"{size:.3g} {unit}"
 
 
+def _check_settle_bound(profile: Profile, requests: Requests, rate_hz: float) -> None:
+    """Without --until-s the output runs until it settles; a profile whose ramps take hours (0.001 m/s^2 to reach
+    100 m/s) could then run past the day's bound after the last request: refused up front, saying why."""
+    end_s = requests.t_s[-1] + _settle_allowance_s(profile)
+    if end_s > MAX_DURATION_S:
+        rows = end_s * rate_hz
+        raise InputError(str(profile.path), "limits", f"{_settle_allowance_s(profile):.4g} s to settle",
+                         f"the output ends by {MAX_DURATION_S:g} s (24 h), but with these limits it may run to "
+                         f"{end_s:.4g} s ({rows:.3g} rows, about {_size_text(rows)}); give --until-s T")
+
+
 def run(args: argparse.Namespace) -> int:
     _check_options(args)
     profile = load_profile(args.profile)
     requests = read_requests(args.requests)
+    if args.until_s is None:
+        _check_settle_bound(profile, requests, args.rate_hz)
     options = {"rate_hz": args.rate_hz, "mode": Mode(args.mode), "until_s": args.until_s}
     with atomic_output(args.output or STDOUT) as handle:
         shape(profile, requests, handle, **options)

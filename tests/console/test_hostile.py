@@ -23,6 +23,8 @@ from pathlib import Path
 from typing import Any
 
 import pytest
+from hypothesis import HealthCheck, given, settings
+from hypothesis import strategies as st
 
 from console import files
 from console.cli import main
@@ -57,6 +59,20 @@ def with_limit(key: str, literal: str) -> str:
 def with_template(key: str, literal: str) -> str:
     return "\n".join(f"{key} = {literal}" if line.startswith(f"{key} =") else line
                      for line in TEMPLATE.splitlines()) + "\n"
+
+
+def set_key(text: str, section: str, key: str, literal: str) -> str:
+    """`key = literal` in [section] (replacing the key there, if it is there)."""
+    lines = text.splitlines()
+    start = lines.index(f"[{section}]")
+    end = next((i for i in range(start + 1, len(lines)) if lines[i].startswith("[")), len(lines))
+    body = [line for line in lines[start + 1:end] if line.split("=")[0].strip() != key]
+    return "\n".join(lines[:start + 1] + [f"{key} = {literal}"] + body + lines[end:]) + "\n"
+
+
+# 100 m/s reached at 0.001 m/s^2: a valid profile whose ramps take more than a day
+SLOW = set_key(set_key(set_key(set_key(WREN, "limits", "wheel_rate_radps", "2000.0"), "limits", "speed_mps", "100.0"),
+                       "limits", "accel_mps2", "0.001"), "limits", "decel_mps2", "0.001")
 
 
 # -- faults injected into the output path ------------------------------------------------------------------------
@@ -231,6 +247,8 @@ CASES = [
     trace_case("rate 5 Hz", TRACE, "--rate-hz = 5.0", "--rate-hz", "5"),
     trace_case("rate not a number", TRACE, "argument --rate-hz: invalid float value: 'abc'", "--rate-hz", "abc"),
     trace_case("mode unknown", TRACE, "argument --mode: invalid choice: 'smooth'", "--mode", "smooth"),
+    Case("limits that take days to settle", ("shape", P, T, "-o", O), 2,
+         "robot.toml: limits = '", {"robot.toml": SLOW, "trace.csv": TRACE}),
     Case("trace is a FIFO", ("shape", P, "{tmp}/pipe"), 2, "pipe: file = ", {"robot.toml": WREN, "pipe": "fifo:"}),
     Case("trace is /dev/zero", ("shape", P, "/dev/zero"), 2, "is a character device", {"robot.toml": WREN}),
     Case("trace is a folder", ("shape", P, "{tmp}"), 2, "is a folder", {"robot.toml": WREN}),
@@ -380,3 +398,36 @@ def test_hostile_input_or_failing_output(case: Case, tmp_path: Path, monkeypatch
 
 def test_the_table_is_big_enough() -> None:
     assert len(CASES) >= 60
+
+
+# -- any value for any number: exit 0 or 2, never anything else ----------------------------------------------------
+
+NUMBER_KEYS = [("limits", key) for key in ("speed_mps", "reverse_speed_mps", "turn_rate_radps", "accel_mps2",
+                                           "decel_mps2", "jerk_mps3", "turn_accel_radps2", "turn_jerk_radps3",
+                                           "sideways_accel_mps2", "wheel_rate_radps", "wheel_accel_radps2",
+                                           "stop_decel_mps2", "stop_jerk_mps3")] + \
+              [("geometry", "wheel_radius_m"), ("geometry", "track_width_m"), ("units", "gear_ratio"),
+               ("units", "ticks_per_rev"), ("units", "trim_left"), ("link", "baud"), ("link", "rate_hz"),
+               ("link", "watchdog_s"), ("sim", "motor_time_constant_s"), ("sim", "noise_radps"), ("sim", "seed"),
+               ("sim", "encoder_ticks_per_rev"), ("sim", "telemetry_rate_hz"), ("sim", "battery_v")]
+TOML_NUMBERS = st.one_of(
+    st.floats(allow_nan=True, allow_infinity=True).map(repr),       # repr gives TOML's own inf, -inf and nan
+    st.integers(-(2**63), 2**63 - 1).map(str),
+    st.sampled_from(["1e-300", "1e300", "5e-324", "-0.0", "0", "true", '"1"', "[1]", "{}", "1_000"]),
+)
+
+
+@settings(max_examples=300, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture])
+@given(st.lists(st.tuples(st.sampled_from(NUMBER_KEYS), TOML_NUMBERS), min_size=1, max_size=4))
+def test_any_numbers_in_a_profile_give_exit_0_or_one_line_and_exit_2(tmp_path: Path,
+                                                                      capsys: pytest.CaptureFixture[str],
+                                                                      changes: list[tuple[tuple[str, str], str]]
+                                                                      ) -> None:
+    text = WREN
+    for (section, key), literal in changes:
+        text = set_key(text, section, key, literal)
+    path = tmp_path / "fuzz.toml"
+    path.write_text(text, encoding="utf-8")
+    code = main(["profile", "check", str(path), "--json"])
+    out, err = capsys.readouterr()
+    assert (code == 0 and err == "") or (code == 2 and err.count("\n") == 1 and err.startswith("diffdeck: ")), err
