@@ -10,6 +10,8 @@ Every output (shape -o, report -o, bench sidecars, the recorder's sidecar, the c
   old content or the complete new one. On any failure, including a signal turned into an exception by the CLI, the
   temporary file is removed and the target is left as it was. `path == "-"` streams to standard output instead.
 - `write_atomic(path, data)` is the same for data already in memory.
+- `check_stream_target(path)` is the check for a file written as it goes (a recording): it may also be a FIFO;
+  `make_folders` / `remove_folders` create an output folder and take it away again when nothing was written.
 - `read_input(path, what)` reads an input file (a profile, a request trace, a recording) and refuses, before
   reading, anything that is not a regular file: a FIFO would block for ever, a device would never end.
 
@@ -116,9 +118,20 @@ def _new_file_mode(target: Path) -> int:
     try:
         return stat.S_IMODE(os.stat(target).st_mode)
     except OSError:
-        umask = os.umask(0)
-        os.umask(umask)
-        return 0o666 & ~umask
+        return 0o666 & ~_umask()
+
+
+def _umask() -> int:
+    """The process's umask, read without changing it (os.umask can only be read by setting it, which would leave
+    a window in which another thread creates a file with no umask at all)."""
+    try:
+        with open("/proc/self/status", encoding="ascii") as status:
+            for line in status:
+                if line.startswith("Umask:"):
+                    return int(line.split()[1], 8)
+    except (OSError, ValueError):
+        pass
+    return 0o022        # common practice: the usual default umask
 
 
 @contextmanager

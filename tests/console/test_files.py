@@ -109,3 +109,13 @@ def test_inputs_must_be_regular_files_and_a_fifo_is_refused_without_blocking(tmp
     with pytest.raises(InputError, match="at most 1000 bytes"):
         files.read_input(big, "a profile", max_bytes=1000)
     assert files.read_input(big, "a profile") == b"#" * 2000
+
+
+def test_a_new_file_gets_the_mode_open_would_give_it(tmp_path: Path) -> None:
+    """open(2) creates a file with mode 0666 cleared by the umask (POSIX.1-2017, open(), O_CREAT)."""
+    previous = os.umask(0o027)
+    try:
+        files.write_atomic(tmp_path / "new.csv", "x\n")
+    finally:
+        os.umask(previous)
+    assert stat.S_IMODE((tmp_path / "new.csv").stat().st_mode) == 0o640
