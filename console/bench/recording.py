@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import io
 import json
+import math
 import warnings
 from dataclasses import dataclass
 from pathlib import Path
@@ -117,16 +118,25 @@ def read_recording(path: str | Path) -> Recording:
                                              "telemetry?)")
     bench = _json(bench_sidecar_path(path))
     meta = _json(sidecar_path(path)) or {}
-    radius = track = top = None
-    if bench is not None:
-        radius, track = bench["geometry"]["wheel_radius_m"], bench["geometry"]["track_width_m"]
-        top = bench.get("top_speed_mps")
-    else:
-        geometry = ((meta.get("profile") or {}).get("data") or {}).get("geometry") or {}
-        radius, track = geometry.get("wheel_radius_m"), geometry.get("track_width_m")
+    side = bench_sidecar_path(path) if bench is not None else sidecar_path(path)
+    radius = track = top = program = None
+    try:
+        if bench is not None:
+            radius, track = bench["geometry"]["wheel_radius_m"], bench["geometry"]["track_width_m"]
+            top = bench.get("top_speed_mps")
+            program = str(bench["program"]["name"])
+        else:
+            geometry = ((meta.get("profile") or {}).get("data") or {}).get("geometry") or {}
+            radius, track = geometry.get("wheel_radius_m"), geometry.get("track_width_m")
+    except (KeyError, TypeError, AttributeError) as error:
+        raise _fail(side, "geometry or program", repr(error)[:60], "the fields diffdeck writes in a sidecar") \
+            from None
+    for name, value in (("wheel_radius_m", radius), ("track_width_m", track), ("top_speed_mps", top)):
+        if value is not None and (isinstance(value, bool) or not isinstance(value, int | float)
+                                  or not math.isfinite(value) or value <= 0):
+            raise _fail(side, name, value, "a number > 0, or left out")
     segments = _segments(path, bench, float(t[0]), float(t[-1]))
-    return Recording(path, data, radius, track, top, segments,
-                     bench["program"]["name"] if bench else None, bench)
+    return Recording(path, data, radius, track, top, segments, program, bench)
 
 
 def _check_cells(path: Path, body: bytes, columns: list[str], usecols: list[int]) -> None:

@@ -226,7 +226,7 @@ def _profile_table(rec: Recording, name: str) -> dict[str, object]:
     try:
         meta = json.loads(sidecar_path(rec.path).read_text(encoding="utf-8"))
         return dict(((meta.get("profile") or {}).get("data") or {}).get(name) or {})
-    except (OSError, ValueError, AttributeError):
+    except (OSError, ValueError, AttributeError, TypeError, RecursionError):
         return {}
 
 

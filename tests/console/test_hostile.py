@@ -287,6 +287,13 @@ CASES = [
                 "line 31, left_meas_radps = 'abc'"),
     report_case("short row", recording("0.30,0.5,0"), "line 31 = '3 fields': 10 comma-separated fields"),
     report_case("times go back", recording("0.01,0.5,0,0.4,0,6,6,5.9,5.9,armed"), "line 31 t_s = 0.01"),
+    Case("sidecar radius -1", ("report", REC, "-o", "{tmp}/report"), 2, "rec.csv.json: wheel_radius_m = -1",
+         {"rec.csv": recording(), "rec.csv.json": '{"profile": {"data": {"geometry": {"wheel_radius_m": -1}}}}'}),
+    Case("bench sidecar program 7", ("report", REC, "-o", "{tmp}/report"), 2, "rec.csv.bench.json: geometry or "
+         "program = ", {"rec.csv": recording(), "rec.csv.bench.json": '{"geometry": 5, "program": 7}'}),
+    Case("sidecar nested 100000 deep", ("report", REC, "-o", "{tmp}/report"), 2, "rec.csv.json: file = 'rec.csv.json'"
+         ": a readable JSON sidecar (RecursionError)", {"rec.csv": recording(),
+                                                         "rec.csv.json": "[" * 100000 + "]" * 100000}),
     Case("recording is a FIFO", ("report", "{tmp}/pipe", "-o", "{tmp}/report"), 2, "is a FIFO", {"pipe": "fifo:"}),
     Case("recording missing", ("report", "{tmp}/none.csv", "-o", "{tmp}/report"), 2, "none.csv: file = "),
     Case("report -o a file", ("report", REC, "-o", "{tmp}/taken"), 6, "taken: exists and is not a folder",
