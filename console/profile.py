@@ -175,7 +175,8 @@ class _Shown:
 
 
 def _short(value: object) -> str:
-    """A value as the message shows it: a table as [...] / {...}, anything long cut to 60 characters."""
+    """A value as the message shows it: a table as {a table}, an array as [an array], anything long cut to 60
+    characters."""
     if isinstance(value, dict):
         return "{a table}"
     if isinstance(value, list):
