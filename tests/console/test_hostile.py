@@ -198,7 +198,7 @@ CASES = [
     profile_case("an inline table for a number", with_limit("speed_mps", "{ a = [" + "1, " * 5000 + "] }"),
                  "limits.speed_mps = {'a': [1, 1,"),
     profile_case("TOML syntax", WREN + "x = = 1\n", "TOML syntax"),
-    profile_case("not UTF-8", b"\xff\xfe" + WREN.encode(), "file = 'byte 0': not UTF-8"),
+    profile_case("profile not UTF-8", b"\xff\xfe" + WREN.encode(), "file = 'byte 0': not UTF-8"),
     profile_case("over a megabyte", WREN + "#" * (1 << 20) + "\n", "at most 1048576 bytes for a TOML profile"),
     Case("profile missing", ("profile", "check", "{tmp}/nothing.toml"), 2, "nothing.toml: file = "),
     Case("profile is a FIFO", ("profile", "check", "{tmp}/pipe"), 2, "is a FIFO", {"pipe": "fifo:"}),
@@ -237,9 +237,9 @@ CASES = [
     trace_case("empty trace", "", "line 1: header = ''"),
     trace_case("no rows", "t_s,v_mps,omega_radps\n", "rows = '(none)'"),
     trace_case("four fields", TRACE + "2,0,0,9\n", "line 4: row = '2,0,0,9'"),
-    trace_case("times go back", TRACE + "0.5,0,0\n", "line 4: t_s = '0.5'"),
+    trace_case("trace times go back", TRACE + "0.5,0,0\n", "line 4: t_s = '0.5'"),
     trace_case("negative time", "t_s,v_mps,omega_radps\n-1,0,0\n", "line 2: t_s = '-1'"),
-    trace_case("not UTF-8", b"t_s,v_mps,omega_radps\n0,\xff,0\n", "not UTF-8"),
+    trace_case("trace not UTF-8", b"t_s,v_mps,omega_radps\n0,\xff,0\n", "not UTF-8"),
     trace_case("until 1e12 s", TRACE, "--until-s = 1000000000000.0: a time greater than 0 and at most 86400 s",
                "--until-s", "1e12"),
     trace_case("until nan", TRACE, "--until-s = nan", "--until-s", "nan"),
@@ -286,7 +286,7 @@ CASES = [
     report_case("text in a recording", recording("0.30,0.5,0,0.4,0,6,6,abc,5.9,armed"),
                 "line 31, left_meas_radps = 'abc'"),
     report_case("short row", recording("0.30,0.5,0"), "line 31 = '3 fields': 10 comma-separated fields"),
-    report_case("times go back", recording("0.01,0.5,0,0.4,0,6,6,5.9,5.9,armed"), "line 31 t_s = 0.01"),
+    report_case("recording times go back", recording("0.01,0.5,0,0.4,0,6,6,5.9,5.9,armed"), "line 31 t_s = 0.01"),
     Case("sidecar radius -1", ("report", REC, "-o", "{tmp}/report"), 2, "rec.csv.json: wheel_radius_m = -1",
          {"rec.csv": recording(), "rec.csv.json": '{"profile": {"data": {"geometry": {"wheel_radius_m": -1}}}}'}),
     Case("bench sidecar program 7", ("report", REC, "-o", "{tmp}/report"), 2, "rec.csv.bench.json: geometry or "
@@ -403,8 +403,8 @@ def test_hostile_input_or_failing_output(case: Case, tmp_path: Path, monkeypatch
         assert list(logs.iterdir()) == []
 
 
-def test_the_table_is_big_enough() -> None:
-    assert len(CASES) >= 60
+def test_the_table_is_big_enough_and_its_names_unique() -> None:
+    assert len(CASES) >= 60 and len({case.name for case in CASES}) == len(CASES)
 
 
 # -- any value for any number: exit 0 or 2, never anything else ----------------------------------------------------
