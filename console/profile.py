@@ -7,15 +7,24 @@ line naming the file, the dotted key, the value and what is allowed (`ProfileErr
 
 from __future__ import annotations
 
+import difflib
+import functools
+import json
 import math
 import re
 import string
+import subprocess
+import sys
+import urllib.parse
 import tomllib
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, fields
 from pathlib import Path
 from typing import Any
 
 from console.errors import InputError
+from console.files import read_input
+from console.protocol import SEQ_MODULUS
+from console.templates import MAX_TEMPLATE_LINE
 from shaping.envelope import Envelope, Limits
 from shaping.geometry import Geometry
 from shaping.units import WheelUnit, WheelUnits
@@ -98,6 +107,49 @@ TELEMETRY_RATE_HZ_RANGE = (1.0, 1000.0)
 DEFAULT_STOP_JERK_FACTOR = 4.0
 DEFAULT_SIM_RATE_FACTOR = 1.2
 SECTIONS = ("robot", "geometry", "limits", "units", "link", "sim")
+MAX_NAME = 80
+MAX_PROFILE_BYTES = 1 << 20   # a profile is a few kB; a megabyte is a mistake (or not a profile at all)
+WIRE_RATE_MAX = 2_000_000.0   # PROTOCOL.md section 10: wheel rates travel as +-2000000.000 firmware units
+# Bounds on every number, so that no figure derived from them (ramp times and distances, wheel rates in the firmware
+# unit, the simulated plant) overflows or loses all precision: from a 1 mm/s crawl to 100 m/s, from a 1 mm wheel to a
+# 10 m one. The README tables state them. (low, high), both allowed.
+RANGES: dict[str, tuple[float, float]] = {
+    "geometry.wheel_radius_m": (0.001, 10.0),
+    "geometry.track_width_m": (0.01, 100.0),
+    "limits.speed_mps": (0.001, 100.0),
+    "limits.reverse_speed_mps": (0.001, 100.0),
+    "limits.turn_rate_radps": (0.001, 1000.0),
+    "limits.accel_mps2": (0.001, 1000.0),
+    "limits.decel_mps2": (0.001, 1000.0),
+    "limits.jerk_mps3": (0.001, 100_000.0),
+    "limits.stop_decel_mps2": (0.001, 1000.0),
+    "limits.stop_jerk_mps3": (0.001, 400_000.0),
+    "limits.turn_accel_radps2": (0.001, 10_000.0),
+    "limits.turn_jerk_radps3": (0.001, 1_000_000.0),
+    "limits.sideways_accel_mps2": (0.001, 1000.0),
+    "limits.wheel_rate_radps": (0.001, 10_000.0),
+    "limits.wheel_accel_radps2": (0.001, 1_000_000.0),
+    "units.ticks_per_rev": (1.0, 10_000_000.0),
+    "units.gear_ratio": (0.001, 10_000.0),
+    "units.full_duty_radps": (0.001, 100_000.0),
+    "link.watchdog_s": (0.002, 60.0),
+    "link.telemetry_timeout_s": (0.002, 60.0),
+    "sim.motor_time_constant_s": (0.0001, 5.0),
+    "sim.deadband_radps": (0.0, 10_000.0),
+    "sim.wheel_accel_radps2": (0.001, 1_000_000.0),
+    "sim.max_wheel_rate_radps": (0.001, 100_000.0),
+    "sim.noise_radps": (0.0, 1000.0),
+    "sim.battery_v": (0.01, 999.99),       # PROTOCOL.md section 4: battery 0.00..999.99 V, 0.00 = not measured
+    "sim.unit_scale": (0.001, 1000.0),
+}
+# a plain number format: [[fill]align][sign][z][#][0][width][grouping][.precision][type]
+PLAIN_SPEC = re.compile(r"(?:.?[<>=^])?[-+ ]?z?#?0?(?P<width>\d*)[,_]?(?:\.(?P<precision>\d+))?(?P<type>[a-zA-Z%]?)")
+REGEX_LINE_BUDGET_S = 0.05    # per adversarial telemetry line; a sane pattern needs microseconds
+REGEX_TOTAL_BUDGET_S = 2.0    # for all of them, starting the trial process included
+NETWORK_SCHEMES = ("socket", "rfc2217")
+BAUD_RANGE = (50, 12_000_000)             # common practice: from the slowest UART rate to fast USB serial adapters
+ENCODER_TICKS_RANGE = (1, 10_000_000)
+SEED_RANGE = (0, 2**63 - 1)
 
 
 SIM_DEFAULTS = SimConfig()
@@ -110,6 +162,38 @@ class _Missing:
 
 
 MISSING: Any = _Missing()
+
+
+class _Shown:
+    """A value shown as given (no quotes added), for the one-line message."""
+
+    def __init__(self, text: str) -> None:
+        self.text = text
+
+    def __repr__(self) -> str:
+        return self.text
+
+
+def _short(value: object) -> str:
+    """A value as the message shows it: a table as {a table}, an array as [an array], anything long cut to 60
+    characters."""
+    if isinstance(value, dict):
+        return "{a table}"
+    if isinstance(value, list):
+        return "[an array]"
+    text = repr(value)
+    return text if len(text) <= 60 else text[:57] + "..."
+
+
+def _keys(cls: type) -> frozenset[str]:
+    return frozenset(f.name for f in fields(cls))
+
+
+# what each table may hold, to tell a misspelt required key from a known key that is simply read later
+_KNOWN_KEYS: dict[str, frozenset[str]] = {
+    "robot": frozenset({"name"}), "geometry": _keys(Geometry), "limits": _keys(Limits), "units": _keys(WheelUnits),
+    "link": _keys(LinkConfig), "link.template": _keys(TemplateConfig), "sim": _keys(SimConfig),
+}
 
 
 class _Table:
@@ -129,12 +213,20 @@ class _Table:
         if key in self.table:
             return self.table[key]
         if default is MISSING:
+            strangers = [other for other in self.table if other not in _KNOWN_KEYS.get(self.name, ())]
+            for other in strangers:     # a misspelt required key is reported as the misspelling, not as missing
+                if difflib.get_close_matches(other, [key], n=1):
+                    raise self.error(other, _Shown(_short(self.table[other])), f"unknown key (did you mean {key}?)")
             raise self.error(key, MISSING, "required; " + allowed)
         return default
 
     def number(self, key: str, unit: str, default: object = MISSING, *, low: float = 0.0, high: float = math.inf,
                low_inclusive: bool = False) -> float:
-        """A finite int or float (never a bool) in (low, high] or [low, high]."""
+        """A finite int or float (never a bool) in (low, high] or [low, high]; RANGES, when it has the key, bounds
+        it to [low, high] from there."""
+        if f"{self.name}.{key}" in RANGES:
+            low, high = RANGES[f"{self.name}.{key}"]
+            low_inclusive = True
         if high < math.inf:
             span = f"from {low:g} to {high:g}" if low_inclusive else f"> {low:g} and <= {high:g}"
         else:
@@ -177,10 +269,12 @@ class _Table:
 
     def finish(self, *, subtables: tuple[str, ...] = ()) -> None:
         """Unknown keys are errors: a misspelt limit must never fall back to a default silently."""
+        known = sorted(self.seen | set(subtables))
         for key in self.table:
-            if key not in self.seen and key not in subtables:
-                known = ", ".join(sorted(self.seen | set(subtables)))
-                raise self.error(key, self.table[key], f"unknown key; [{self.name}] takes {known}")
+            if key not in known:
+                close = difflib.get_close_matches(key, known, n=1)
+                hint = f"did you mean {close[0]}?" if close else f"[{self.name}] takes {', '.join(known)}"
+                raise self.error(key, _Shown(_short(self.table[key])), f"unknown key ({hint})")
 
 
 def load_profile(path: str | Path) -> Profile:
@@ -190,32 +284,36 @@ def load_profile(path: str | Path) -> Profile:
     data = _parse(path)
     for section in data:
         if section not in SECTIONS:
-            raise ProfileError(file, section, data[section], "unknown section; a profile has " + ", ".join(
-                f"[{s}]" for s in SECTIONS))
+            close = difflib.get_close_matches(section, SECTIONS, n=1)
+            hint = f"did you mean [{close[0]}]?" if close else "a profile has " + ", ".join(f"[{s}]" for s in SECTIONS)
+            raise ProfileError(file, f"[{section}]", _Shown(_short(data[section])), f"unknown section ({hint})")
     robot = _required_table(file, data, "robot")
     name = robot.text("name")
+    if len(name) > MAX_NAME or not name.isprintable():
+        raise robot.error("name", name, f"a name of at most {MAX_NAME} characters on one line, without control "
+                                        "characters (it is shown in the console and stored with recordings)")
     robot.finish()
     geometry = _geometry(_required_table(file, data, "geometry"))
     limits = _limits(_required_table(file, data, "limits"), geometry)
     units = _units(_Table(file, "units", data.get("units", {})), limits)
     sim = _sim(_Table(file, "sim", data.get("sim", {})), limits)
-    link = _link(_Table(file, "link", data.get("link", {})), sim)
+    link = _link(_Table(file, "link", data.get("link", {})), sim, _top_command(units, limits))
     return Profile(path=path, name=name, geometry=geometry, limits=limits, units=units, link=link, sim=sim, data=data)
 
 
 def _parse(path: Path) -> dict[str, Any]:
     file = str(path)
     try:
-        text = path.read_bytes().decode("utf-8")
-    except FileNotFoundError:
-        raise ProfileError(file, "file", file, "no such file; give the path of a TOML profile") from None
+        text = read_input(path, "a TOML profile", max_bytes=MAX_PROFILE_BYTES).decode("utf-8")
     except UnicodeDecodeError as error:
         raise ProfileError(file, "file", f"byte {error.start}", "not UTF-8 text; a profile is a UTF-8 TOML file") \
             from None
-    except OSError as error:
-        raise ProfileError(file, "file", file, f"cannot be read ({error.strerror})") from None
+    except InputError as error:
+        raise ProfileError(error.where, error.key, error.value, error.allowed) from None
     try:
         return tomllib.loads(text)
+    except RecursionError:
+        raise ProfileError(file, "TOML syntax", "", "arrays or tables nested too deeply for a profile") from None
     except tomllib.TOMLDecodeError as error:
         message = str(error)
         found = re.search(r"\(at line (\d+), column \d+\)", message)
@@ -299,10 +397,12 @@ def _limits(table: _Table, geometry: Geometry) -> Limits:
 def _units(table: _Table, limits: Limits) -> WheelUnits:
     names = tuple(unit.value for unit in WheelUnit)
     unit = WheelUnit(table.text("unit", WheelUnit.RADPS.value, choices=names))
-    ticks = table.number("ticks_per_rev", "encoder ticks per motor revolution", 0.0 if unit is not WheelUnit.TICKS_PER_S
-                         else MISSING, low_inclusive=unit is not WheelUnit.TICKS_PER_S)
-    full_duty = table.number("full_duty_radps", "wheel rad/s at duty 1.0", 0.0 if unit is not WheelUnit.DUTY
-                             else MISSING, low_inclusive=unit is not WheelUnit.DUTY)
+    ticks = 0.0
+    if unit is WheelUnit.TICKS_PER_S or "ticks_per_rev" in table.table:
+        ticks = table.number("ticks_per_rev", "encoder ticks per motor revolution")
+    full_duty = 0.0
+    if unit is WheelUnit.DUTY or "full_duty_radps" in table.table:
+        full_duty = table.number("full_duty_radps", "wheel rad/s at duty 1.0")
     if unit is WheelUnit.DUTY and full_duty < limits.wheel_rate_radps:
         raise table.error("full_duty_radps", full_duty, f"at least limits.wheel_rate_radps = "
                                                         f"{limits.wheel_rate_radps:g} rad/s, or duty would pass 1.0")
@@ -320,7 +420,33 @@ def _units(table: _Table, limits: Limits) -> WheelUnits:
         swap_encoders=table.boolean("swap_encoders", False),
     )
     table.finish()
+    _check_wire_range(table, units, limits)
     return units
+
+
+def _top_command(units: WheelUnits, limits: Limits) -> float:
+    """The largest number a wheel command can carry, in the firmware unit (trim included)."""
+    return limits.wheel_rate_radps * units.per_radps * max(units.trim_left, units.trim_right)
+
+
+def _check_wire_range(table: _Table, units: WheelUnits, limits: Limits) -> None:
+    """The fastest wheel command, in the firmware unit and trimmed, must fit the wire (PROTOCOL.md section 10).
+
+    Named after the unit's own setting: ticks_per_rev for ticks/s, gear_ratio for rpm (the only setting that
+    scales it), the wheel rate limit for rad/s. A duty never passes 1.0 (full_duty_radps is checked above).
+    """
+    top = _top_command(units, limits)
+    if top <= WIRE_RATE_MAX:
+        return
+    key = {WheelUnit.TICKS_PER_S: "ticks_per_rev", WheelUnit.RPM: "gear_ratio"}.get(units.unit)
+    setting = {"ticks_per_rev": units.ticks_per_rev, "gear_ratio": units.gear_ratio}.get(key or "")
+    allowed = (f"with unit = \"{units.unit.value}\", gear_ratio = {units.gear_ratio:g}, ticks_per_rev = "
+               f"{units.ticks_per_rev:g}, limits.wheel_rate_radps = {limits.wheel_rate_radps:g} and the trim, the "
+               f"fastest wheel command is {top:.4g} {units.unit.value}: beyond the wire's +-{WIRE_RATE_MAX:.3f} "
+               "(PROTOCOL.md section 10)")
+    if key is None:
+        raise ProfileError(table.file, "limits.wheel_rate_radps", limits.wheel_rate_radps, allowed)
+    raise table.error(key, setting, allowed)
 
 
 def _sim(table: _Table, limits: Limits) -> SimConfig:
@@ -333,14 +459,15 @@ def _sim(table: _Table, limits: Limits) -> SimConfig:
         wheel_accel_radps2=table.number("wheel_accel_radps2", "rad/s^2", SIM_DEFAULTS.wheel_accel_radps2),
         max_wheel_rate_radps=table.number("max_wheel_rate_radps", "rad/s; default 1.2 x limits.wheel_rate_radps",
                                           DEFAULT_SIM_RATE_FACTOR * limits.wheel_rate_radps),
-        encoder_ticks_per_rev=table.integer("encoder_ticks_per_rev", SIM_DEFAULTS.encoder_ticks_per_rev),
+        encoder_ticks_per_rev=table.integer("encoder_ticks_per_rev", SIM_DEFAULTS.encoder_ticks_per_rev,
+                                            low=ENCODER_TICKS_RANGE[0], high=ENCODER_TICKS_RANGE[1]),
         wheel_radius_ratio=table.number("wheel_radius_ratio", "actual right / left radius",
                                         SIM_DEFAULTS.wheel_radius_ratio, low=low, high=high, low_inclusive=True),
         track_width_scale=table.number("track_width_scale", "actual / nominal track width",
                                        SIM_DEFAULTS.track_width_scale, low=low, high=high, low_inclusive=True),
         noise_radps=table.number("noise_radps", "rad/s, standard deviation", SIM_DEFAULTS.noise_radps,
                                  low_inclusive=True),
-        seed=table.integer("seed", SIM_DEFAULTS.seed, low=0),
+        seed=table.integer("seed", SIM_DEFAULTS.seed, low=SEED_RANGE[0], high=SEED_RANGE[1]),
         telemetry_rate_hz=table.number("telemetry_rate_hz", "Hz", SIM_DEFAULTS.telemetry_rate_hz,
                                        low=TELEMETRY_RATE_HZ_RANGE[0], high=TELEMETRY_RATE_HZ_RANGE[1],
                                        low_inclusive=True),
@@ -358,9 +485,32 @@ def _sim(table: _Table, limits: Limits) -> SimConfig:
     return sim
 
 
-def _link(table: _Table, sim: SimConfig) -> LinkConfig:
+def link_url_problem(url: str) -> str | None:
+    """What is wrong with a link URL before anything is opened (None: it looks usable), so that a malformed URL is
+    bad input (exit 2), not a lost link. Host and port are checked for the network schemes; the rest is pyserial's."""
+    allowed = '"sim", a device path such as /dev/ttyUSB0, or a pyserial URL such as socket://host:port'
+    if not url.strip() or any(c.isspace() or not c.isprintable() for c in url):
+        return f"{allowed}, without spaces or control characters"
+    scheme, sep, _ = url.partition("://")
+    if not sep:
+        return None if url == "sim" or url.startswith("/") else f"{allowed} (a device path starts with /)"
+    if scheme.lower() in NETWORK_SCHEMES:
+        parts = urllib.parse.urlsplit(url)
+        try:
+            port = parts.port
+        except ValueError:
+            return f"{scheme}://host:port with a port from 1 to 65535"
+        if not parts.hostname or port is None or not 1 <= port <= 65535:
+            return f"{scheme}://host:port with a host and a port from 1 to 65535"
+    return None
+
+
+def _link(table: _Table, sim: SimConfig, top_command: float) -> LinkConfig:
     url = table.text("url", LINK_DEFAULTS.url)
-    baud = table.integer("baud", LINK_DEFAULTS.baud)
+    problem = link_url_problem(url)
+    if problem is not None:
+        raise table.error("url", url, problem)
+    baud = table.integer("baud", LINK_DEFAULTS.baud, low=BAUD_RANGE[0], high=BAUD_RANGE[1])
     rate_hz = table.number("rate_hz", "Hz", LINK_DEFAULTS.rate_hz, low=RATE_HZ_RANGE[0], high=RATE_HZ_RANGE[1],
                            low_inclusive=True)
     protocol = table.text("protocol", LINK_DEFAULTS.protocol, choices=PROTOCOLS)
@@ -376,7 +526,8 @@ def _link(table: _Table, sim: SimConfig) -> LinkConfig:
     template = None
     if protocol == "template":
         template = _template(_Table(table.file, "link.template", table.raw("template", MISSING,
-                                                                            'a [link.template] section')))
+                                                                            'a [link.template] section')),
+                             top_command)
     elif "template" in table.table:
         raise table.error("template", table.table["template"], 'only with protocol = "template"')
     table.finish(subtables=("template",))
@@ -384,29 +535,40 @@ def _link(table: _Table, sim: SimConfig) -> LinkConfig:
                       telemetry_timeout_s=timeout, template=template)
 
 
-def _template(table: _Table) -> TemplateConfig:
+def _template(table: _Table, top_command: float) -> TemplateConfig:
     template = TemplateConfig(
-        command_format=_line_format(table, "command_format", COMMAND_FIELDS, {"left", "right"}),
-        stop_format=_line_format(table, "stop_format", STOP_FIELDS, set()),
+        command_format=_line_format(table, "command_format", COMMAND_FIELDS, {"left", "right"}, top_command),
+        stop_format=_line_format(table, "stop_format", STOP_FIELDS, set(), top_command),
         telemetry_regex=_telemetry_regex(table),
     )
     table.finish()
     return template
 
 
-def _line_format(table: _Table, key: str, allowed_fields: frozenset[str], required: set[str]) -> str:
-    """A str.format line using only the allowed fields, which renders with sample numbers to one line."""
+def _line_format(table: _Table, key: str, allowed_fields: frozenset[str], required: set[str],
+                 top_command: float) -> str:
+    """A str.format line of plain number fields from the allowed ones, one line that fits the robot's line length
+    whatever the values (checked with the fastest command either way and the last sequence number)."""
     names = " ".join("{" + name + "}" for name in sorted(allowed_fields))
     fmt = table.text(key)
     try:
-        used = {name for _, name, _, _ in string.Formatter().parse(fmt) if name is not None}
+        parsed = [(name, spec, conversion) for _, name, spec, conversion in string.Formatter().parse(fmt)
+                  if name is not None]
     except ValueError as error:
         raise table.error(key, fmt, f"a Python format string ({error}); fields: {names}") from None
-    bases = {re.split(r"[.\[]", name, maxsplit=1)[0] for name in used}
-    unknown = sorted(bases - allowed_fields)
-    if unknown:
-        raise table.error(key, fmt, f"unknown field {{{unknown[0]}}}; allowed fields: {names}")
-    missing = sorted(required - bases)
+    for name, spec, conversion in parsed:
+        if name not in allowed_fields:
+            raise table.error(key, fmt, f"unknown field {{{name}}}; allowed fields: {names}")
+        number_types = "d" if name == "seq" else "eEfFgG%"
+        plain = PLAIN_SPEC.fullmatch(spec or "")
+        if conversion is not None or plain is None or (plain["type"] and plain["type"] not in number_types):
+            raise table.error(key, fmt, f"{{{name}{'!' + conversion if conversion else ''}:{spec}}} is not a plain "
+                                        f"number field; write it as {{{name}}} or with a number format such as "
+                                        f"{{{name}:{'05d' if name == 'seq' else '+.3f'}}}")
+        if int(plain["width"] or 0) >= MAX_TEMPLATE_LINE or int(plain["precision"] or 0) >= MAX_TEMPLATE_LINE:
+            raise table.error(key, fmt, f"{{{name}:{spec}}} renders wider than the robot's line "
+                                        f"({MAX_TEMPLATE_LINE - 1} bytes)")
+    missing = sorted(required - {name for name, _, _ in parsed})
     if missing:
         raise table.error(key, fmt, f"must contain {{{missing[0]}}}; allowed fields: {names}")
     try:
@@ -415,6 +577,12 @@ def _line_format(table: _Table, key: str, allowed_fields: frozenset[str], requir
         raise table.error(key, fmt, f"cannot render with left = -12.5, right = 3.25, seq = 42 ({error})") from None
     if "\n" in rendered or "\r" in rendered:
         raise table.error(key, fmt, "one line without line breaks (the newline is added when sending)")
+    for extreme in (-top_command, top_command, -1.0 / 3.0):
+        longest = fmt.format(left=extreme, right=extreme, seq=SEQ_MODULUS - 1)
+        if len(longest.encode("utf-8")) >= MAX_TEMPLATE_LINE:
+            raise table.error(key, fmt, f"renders {len(longest.encode('utf-8'))} bytes with left = right = "
+                                        f"{extreme:g} (the fastest command), more than the robot's line of "
+                                        f"{MAX_TEMPLATE_LINE - 1} bytes")
     return fmt
 
 
@@ -432,4 +600,56 @@ def _telemetry_regex(table: _Table) -> str:
     if missing:
         raise table.error("telemetry_regex", pattern, f"needs the named group (?P<{missing[0]}>...); "
                                                       f"allowed groups: {allowed}")
+    slow = _slow_line(pattern)
+    if slow is not None:
+        raise table.error("telemetry_regex", pattern, f"takes more than {REGEX_LINE_BUDGET_S:g} s on {slow} "
+                                                      "(catastrophic backtracking: a quantifier inside a repeated "
+                                                      "group); match each field once, e.g. (?P<left>[-+]?\\d+\\.\\d+)")
     return pattern
+
+
+# Tries the regex on each line it is given (JSON on stdin) in a process of its own, printing the line's index before
+# each try: Python's re cannot be interrupted, so a runaway match is ended by killing the process.
+_REGEX_TRIAL = """
+import json, re, sys, time
+pattern, lines, budget = json.load(sys.stdin)
+regex = re.compile(pattern)
+for index, line in enumerate(lines):
+    print(index, flush=True)
+    start = time.perf_counter()
+    regex.search(line)
+    if time.perf_counter() - start > budget:
+        break
+"""
+
+
+@functools.lru_cache(maxsize=64)
+def _slow_line(pattern: str) -> str | None:
+    """A description of the first adversarial line `pattern` takes too long on, or None when it copes with all.
+
+    The lines are as long as a telemetry line may be (MAX_TEMPLATE_LINE - 1): long runs of digits, signs, points,
+    spaces and of the pattern's own literal characters, each ended by a character that makes the match fail late,
+    the shape that sends a backtracking matcher into exponential time.
+    """
+    length = MAX_TEMPLATE_LINE - 1
+    alphabet = sorted(set("0123456789-+., :=_") | {c for c in pattern if c.isalnum()})
+    units = alphabet + ["1.", "-1.0 ", "1 "] + [word for word in re.findall(r"[A-Za-z_]{2,}", pattern)]
+    lines, names = [], []
+    for unit in units:
+        run = (unit * length)[: length - 1]
+        for end in ("\x00", "!"):
+            lines.append(run + end)
+            names.append(f"a line of {len(run)} characters repeating {unit!r} then {end!r}")
+    command = [sys.executable, "-I", "-S", "-c", _REGEX_TRIAL]
+    try:
+        done = subprocess.run(command, input=json.dumps([pattern, lines, REGEX_LINE_BUDGET_S]), capture_output=True,
+                              text=True, timeout=REGEX_TOTAL_BUDGET_S, check=False)
+        out = done.stdout
+    except subprocess.TimeoutExpired as timeout:
+        out = timeout.stdout.decode() if isinstance(timeout.stdout, bytes) else (timeout.stdout or "")
+        tried = out.split()
+        return names[int(tried[-1])] if tried else "the first line tried"
+    tried = out.split()
+    if len(tried) < len(lines):
+        return names[int(tried[-1])] if tried else "the first line tried"
+    return None

@@ -4,7 +4,8 @@ The control loop must never wait on the disk, so `put` only appends to a bounded
 row and counts it) and a writer thread drains it. The writer writes whole lines in one system call at least every
 `flush_s` (0.1 s by default): a process killed outright leaves a parseable file missing at most the last 0.2 s.
 The sidecar (`<csv>.json`) is written on `close`, atomically, with the profile used, versions, link, start time,
-loop statistics and the dropped-row count.
+loop statistics and the dropped-row count. On a full disk recording stops: the file is cut back to its last whole
+row, the loop runs on (the robot is stopped as usual) and the sidecar says why; `problem` is the one line to show.
 """
 
 from __future__ import annotations
@@ -12,7 +13,6 @@ from __future__ import annotations
 import dataclasses
 import json
 import math
-import os
 import platform
 import threading
 from collections import deque
@@ -25,6 +25,8 @@ import numpy
 import serial
 
 from console import __version__
+from console.errors import OutputError
+from console.files import check_stream_target, make_folders, reason, remove_folders, write_atomic
 
 if TYPE_CHECKING:
     from console.profile import Profile
@@ -93,15 +95,30 @@ class Recorder:
         self.started = datetime.now(timezone.utc)
         self.dropped = 0
         self.written = 0
-        self.write_error: str | None = None
+        self.write_error: str | None = None     # why recording stopped early (a full disk), kept in the sidecar
+        self.sidecar_error: str | None = None   # why even the sidecar could not be written
         self._capacity = queue_rows
         self._flush_s = flush_s
         self._queue: deque[str] = deque()
         self._closing = threading.Event()
         self._closed = False
-        self.path.parent.mkdir(parents=True, exist_ok=True)
-        self._file = open(self.path, "wb", buffering=0)  # unbuffered: each batch of whole lines is one write()
-        self._write((",".join(self.columns) + "\n").encode())
+        try:
+            created = make_folders(self.path.parent)
+        except OutputError as error:
+            raise OutputError(str(self.path), f"its folder {error.target} {error.reason}") from None
+        self._complete = 0          # bytes of whole lines in the file: a failed write is cut back to this
+        try:
+            check_stream_target(self.path)      # never write into a device or a folder by mistake
+            self._file = open(self.path, "wb", buffering=0)  # unbuffered: each batch of whole lines is one write()
+            try:
+                self._write((",".join(self.columns) + "\n").encode())
+            except BaseException:
+                self._file.close()
+                self.path.unlink(missing_ok=True)
+                raise
+        except BaseException:
+            remove_folders(created)     # a failed start leaves no empty folder behind
+            raise
         self._thread = threading.Thread(target=self._run, name="diffdeck-recorder", daemon=True)
         self._thread.start()
 
@@ -118,6 +135,7 @@ class Recorder:
         view = memoryview(data)
         while view:
             view = view[self._file.write(view):]
+        self._complete += len(data)
 
     def _drain(self) -> None:
         lines = []
@@ -128,14 +146,22 @@ class Recorder:
             except IndexError:
                 break
             lines.append(line)
-        if not lines or self.write_error is not None:
+        if not lines:
+            return
+        if self.write_error is not None:    # recording has stopped: every row from now on is counted as dropped
+            self.dropped += len(lines)
             return
         try:
             self._write(("\n".join(lines) + "\n").encode())
             self.written += len(lines)
-        except OSError as error:   # disk full, medium gone: keep the loop running, report it in the sidecar
-            self.write_error = f"{error.strerror or error} after {self.written} rows"
+        except OSError as error:   # disk full, medium gone: keep the loop running, stop recording, say why
+            self.write_error = (f"recording stopped after {self.written} rows ({reason(error)}); the rows before are "
+                                "complete")
             self.dropped += len(lines)
+            try:
+                self._file.truncate(self._complete)     # no half row at the end: every row left is whole
+            except OSError:
+                pass        # the medium is gone: the reader skips what is not a whole line
 
     def _run(self) -> None:
         while not self._closing.wait(self._flush_s):
@@ -167,10 +193,19 @@ class Recorder:
             "dropped_rows": self.dropped,
             "write_error": self.write_error,
         }
-        tmp = side.with_name(side.name + ".tmp")
-        tmp.write_text(json.dumps(_json_safe(meta), indent=2) + "\n", encoding="utf-8")
-        os.replace(tmp, side)
+        try:
+            write_atomic(side, json.dumps(_json_safe(meta), indent=2) + "\n")
+        except OutputError as error:
+            self.sidecar_error = error.reason
         return side
+
+    @property
+    def problem(self) -> OutputError | None:
+        """The error to end the run with when the recording is not what was asked for (None when it is complete)."""
+        if self.sidecar_error is not None:
+            return OutputError(str(sidecar_path(self.path)), self.sidecar_error
+                               + (f"; {self.write_error}" if self.write_error else ""))
+        return None if self.write_error is None else OutputError(str(self.path), self.write_error)
 
     def __enter__(self) -> Recorder:
         return self

@@ -6,12 +6,14 @@ closed pty, reset TCP bridge, closed memory end) raises `LinkLost` with one line
 
 from __future__ import annotations
 
+import os
 import threading
 from typing import Protocol
 
 import serial
 
-from console.errors import InputError, LinkLost
+from console.errors import InputError, LinkLost, LinkOpenError
+from console.profile import link_url_problem
 
 READ_CHUNK = 4096          # bytes taken per read(); more stays in the OS buffer for the next cycle
 WRITE_TIMEOUT_S = 0.1      # a write blocked this long means the link no longer drains: treated as lost
@@ -63,12 +65,16 @@ def open_url(url: str, baud: int) -> SerialTransport:
     """Open a device path or pyserial URL (socket://, rfc2217://, loop://, ...)."""
     # pyserial's RFC 2217 client refuses a write timeout (NotImplementedError); its socket gives up after 5 s itself.
     write_timeout = None if url.lower().startswith("rfc2217://") else WRITE_TIMEOUT_S
+    problem = link_url_problem(url)
+    if problem is not None:
+        raise InputError("link", "url", url, problem)
     try:
         port = serial.serial_for_url(url, baudrate=baud, timeout=0, write_timeout=write_timeout)
     except ValueError as e:   # unknown URL scheme, bad parameters
         raise InputError("link", "url", url, " ".join(str(e).split())) from e
     except (serial.SerialException, OSError) as e:
-        raise _lost(url, e) from e
+        cause = os.strerror(e.errno) if isinstance(e.errno, int) else " ".join(str(e).split())
+        raise LinkOpenError(f"cannot open the link {url}: {cause}; nothing was sent") from e
     return SerialTransport(port, url)
 
 

@@ -11,13 +11,13 @@ observation the check says what to watch for instead of guessing.
 from __future__ import annotations
 
 import json
-import os
 from dataclasses import dataclass, field
 from pathlib import Path
 
 import numpy as np
 
 from console.bench.recording import Recording
+from console.files import write_atomic
 
 WHEELS = ("left", "right")
 DEAD_SHARE = 0.2          # a channel moving no wheel by more than 20 % of the command is dead
@@ -110,9 +110,7 @@ def record_observations(bench_sidecar: Path, observed: dict[str, str]) -> None:
     """Add the operator's observations to a run's bench sidecar (rewritten atomically) for the report."""
     meta = json.loads(bench_sidecar.read_text(encoding="utf-8"))
     meta["observed"] = observed
-    tmp = bench_sidecar.with_name(bench_sidecar.name + ".tmp")
-    tmp.write_text(json.dumps(meta, indent=2) + "\n", encoding="utf-8")
-    os.replace(tmp, bench_sidecar)
+    write_atomic(bench_sidecar, json.dumps(meta, indent=2) + "\n")
 
 
 def check_polarity(rec: Recording, units: dict[str, object] | None = None) -> PolarityReport | None:

@@ -18,6 +18,7 @@ from typing import Any
 import numpy as np
 
 from console.errors import InputError
+from console.files import read_input
 from shaping.envelope import Envelope
 
 
@@ -123,6 +124,7 @@ SEGMENT_KEYS: dict[Kind, frozenset[str]] = {
 COMMON_KEYS = frozenset({"name", "kind", "axis", "duration_s", "with", "bypass_shaper"})
 PROGRAM_KEYS = frozenset({"name", "description"})
 MAX_DURATION_S = 4 * 3600.0
+MAX_PROGRAM_BYTES = 1 << 20  # a program is a few kB
 
 
 class _Reader:
@@ -252,13 +254,17 @@ def load_program(path: str | Path) -> Program:
     """Read a TOML program file (raises ProgramError: unreadable, not TOML, or invalid)."""
     path = Path(path)
     try:
-        text = path.read_text(encoding="utf-8")
-    except (OSError, UnicodeDecodeError) as error:
-        raise ProgramError(str(path), "file", str(path), f"a readable UTF-8 TOML file ({error.__class__.__name__})")
+        text = read_input(path, "a bench program (TOML)", max_bytes=MAX_PROGRAM_BYTES).decode("utf-8")
+    except UnicodeDecodeError as error:
+        raise ProgramError(str(path), "file", f"byte {error.start}", "a UTF-8 TOML file") from None
+    except InputError as error:
+        raise ProgramError(error.where, error.key, error.value, error.allowed) from None
     try:
         data = tomllib.loads(text)
     except tomllib.TOMLDecodeError as error:
-        raise ProgramError(str(path), "syntax", str(error), "valid TOML")
+        raise ProgramError(str(path), "syntax", " ".join(str(error).split()), "valid TOML") from None
+    except RecursionError:
+        raise ProgramError(str(path), "syntax", "", "arrays or tables nested too deeply for a program") from None
     return parse_program(data, str(path), str(path))
 
 

@@ -4,7 +4,8 @@ from __future__ import annotations
 
 import io
 import json
-import re
+import math
+import warnings
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
@@ -13,6 +14,7 @@ import numpy as np
 
 from console.bench.run import bench_sidecar_path
 from console.errors import InputError
+from console.files import PLAIN_NUMBER, read_input
 from console.record import COLUMNS, POSE_COLUMNS, sidecar_path
 
 NUMERIC = tuple(c for c in COLUMNS if c != "state")
@@ -61,9 +63,6 @@ class Recording:
         return self.data["t_s"]
 
 
-_ROW_RE = re.compile(r"row (\d+)")
-
-
 def _fail(path: Path, key: str, value: object, allowed: str) -> RecordingError:
     return RecordingError(str(path), key, value, allowed)
 
@@ -73,17 +72,14 @@ def _json(path: Path) -> dict[str, Any] | None:
         data = json.loads(path.read_text(encoding="utf-8"))
     except FileNotFoundError:
         return None
-    except (OSError, ValueError) as error:
-        raise _fail(path, "file", path.name, f"a readable JSON sidecar ({error.__class__.__name__})")
+    except (OSError, ValueError, RecursionError) as error:
+        raise _fail(path, "file", path.name, f"a readable JSON sidecar ({error.__class__.__name__})") from None
     return data if isinstance(data, dict) else None
 
 
 def read_recording(path: str | Path) -> Recording:
     path = Path(path)
-    try:
-        raw = path.read_bytes()
-    except OSError as error:
-        raise _fail(path, "file", str(path), f"a readable CSV recording ({error.__class__.__name__})")
+    raw = read_input(path, "a CSV recording")
     head, _, body = raw.partition(b"\n")
     del raw
     header = head.decode("utf-8", "replace").strip()
@@ -95,41 +91,69 @@ def read_recording(path: str | Path) -> Recording:
     usecols = [columns.index(name) for name in names]
     # Bytes, not str: numpy's reader takes them as they are (a str copy would cost 4 bytes per character).
     # Empty fields (no measurement yet) become nan; two passes cover runs of empty fields.
-    body = body.replace(b",,", b",nan,").replace(b",,", b",nan,").replace(b",\n", b",nan\n")
-    if body.endswith(b","):
-        body += b"nan"
+    filled = body.replace(b",,", b",nan,").replace(b",,", b",nan,").replace(b",\n", b",nan\n")
+    if filled.endswith(b","):
+        filled += b"nan"
     try:
-        table = np.loadtxt(io.BytesIO(body), delimiter=",", usecols=usecols, ndmin=2, dtype=float)
-    except ValueError as error:
-        match = _ROW_RE.search(str(error))
-        # numpy counts rows from 0 in conversion errors and from 1 in column-count errors; line 1 is the header
-        line = int(match.group(1)) + (2 if "convert" in str(error) else 1) if match else "?"
-        raise _fail(path, f"line {line}", str(error).split(" at row")[0][:80],
-                    f"{len(columns)} comma-separated fields per row, numbers in {', '.join(names)}")
+        with warnings.catch_warnings():     # numpy warns about an empty body; "rows" below says it in one line
+            warnings.simplefilter("ignore")
+            table = np.loadtxt(io.BytesIO(filled), delimiter=",", usecols=usecols, ndmin=2, dtype=float)
+    except ValueError:
+        table = None
+    del filled
+    if table is None or b"_" in body or np.isinf(table).any():
+        _check_cells(path, body, columns, usecols)
     del body
+    assert table is not None, "_check_cells raises on whatever numpy refused"
     if table.shape[0] < MIN_ROWS:
         raise _fail(path, "rows", table.shape[0], f"at least {MIN_ROWS} data rows")
     data = {name: table[:, i].copy() for i, name in enumerate(names)}
     t = data["t_s"]
     bad = np.flatnonzero(~np.isfinite(t) | (np.diff(t, prepend=-np.inf) <= 0.0))
     if bad.size:
-        raise _fail(path, f"line {int(bad[0]) + 2} t_s", t[bad[0]], "finite times, strictly increasing")
+        raise _fail(path, f"line {int(bad[0]) + 2} t_s", float(t[bad[0]]), "finite times, strictly increasing")
     for name in ("left_meas_radps", "right_meas_radps"):
         if np.count_nonzero(np.isfinite(data[name])) < MIN_ROWS:
             raise _fail(path, name, "empty", f"measured wheel rates in at least {MIN_ROWS} rows (the robot sent no "
                                              "telemetry?)")
     bench = _json(bench_sidecar_path(path))
     meta = _json(sidecar_path(path)) or {}
-    radius = track = top = None
-    if bench is not None:
-        radius, track = bench["geometry"]["wheel_radius_m"], bench["geometry"]["track_width_m"]
-        top = bench.get("top_speed_mps")
-    else:
-        geometry = ((meta.get("profile") or {}).get("data") or {}).get("geometry") or {}
-        radius, track = geometry.get("wheel_radius_m"), geometry.get("track_width_m")
+    side = bench_sidecar_path(path) if bench is not None else sidecar_path(path)
+    radius = track = top = program = None
+    try:
+        if bench is not None:
+            radius, track = bench["geometry"]["wheel_radius_m"], bench["geometry"]["track_width_m"]
+            top = bench.get("top_speed_mps")
+            program = str(bench["program"]["name"])
+        else:
+            geometry = ((meta.get("profile") or {}).get("data") or {}).get("geometry") or {}
+            radius, track = geometry.get("wheel_radius_m"), geometry.get("track_width_m")
+    except (KeyError, TypeError, AttributeError) as error:
+        raise _fail(side, "geometry or program", repr(error)[:60], "the fields diffdeck writes in a sidecar") \
+            from None
+    for name, value in (("wheel_radius_m", radius), ("track_width_m", track), ("top_speed_mps", top)):
+        if value is not None and (isinstance(value, bool) or not isinstance(value, int | float)
+                                  or not math.isfinite(value) or value <= 0):
+            raise _fail(side, name, value, "a number > 0, or left out")
     segments = _segments(path, bench, float(t[0]), float(t[-1]))
-    return Recording(path, data, radius, track, top, segments,
-                     bench["program"]["name"] if bench else None, bench)
+    return Recording(path, data, radius, track, top, segments, program, bench)
+
+
+def _check_cells(path: Path, body: bytes, columns: list[str], usecols: list[int]) -> None:
+    """The first bad line, field or value, named (the slow way, only once the fast reader has refused something)."""
+    for number, line in enumerate(body.split(b"\n"), start=2):
+        if not line.strip():
+            continue
+        fields = line.decode("utf-8", "replace").rstrip("\r").split(",")
+        if len(fields) != len(columns):
+            raise _fail(path, f"line {number}", f"{len(fields)} fields", f"{len(columns)} comma-separated fields, "
+                                                                         "as in the header")
+        for index in usecols:
+            cell = fields[index]
+            if cell.strip() not in ("", "nan") and not PLAIN_NUMBER.fullmatch(cell):
+                raise _fail(path, f"line {number}, {columns[index]}", cell[:40],
+                            "a finite number, or empty (or nan) where nothing was measured")
+    raise _fail(path, "file", str(path), "a CSV recording numpy can read (this one it cannot; please report it)")
 
 
 def _segments(path: Path, bench: dict[str, Any] | None, t_first: float, t_last: float) -> tuple[Segment, ...]:

@@ -9,7 +9,6 @@ from __future__ import annotations
 import dataclasses
 import json
 import math
-import os
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
@@ -20,6 +19,7 @@ from console.bench import analysis
 from console.bench.analysis import FopdtFit, StepMetrics, SuggestedLimits
 from console.bench.polarity import PolarityReport, check_polarity
 from console.bench.recording import Recording, Segment
+from console.files import atomic_output, check_output, make_folders, remove_folders, write_atomic
 from console.record import sidecar_path
 
 DEFAULT_SPEED_ERROR_SHARE = 0.05    # stated tracking error for the suggested limits: 5 % of the top speed
@@ -226,7 +226,7 @@ def _profile_table(rec: Recording, name: str) -> dict[str, object]:
     try:
         meta = json.loads(sidecar_path(rec.path).read_text(encoding="utf-8"))
         return dict(((meta.get("profile") or {}).get("data") or {}).get(name) or {})
-    except (OSError, ValueError, AttributeError):
+    except (OSError, ValueError, AttributeError, TypeError, RecursionError):
         return {}
 
 
@@ -314,10 +314,9 @@ def _figures(rec: Recording, report: Report, out: Path) -> list[Path]:
 
 
 def _save(fig: Any, path: Path) -> Path:
-    tmp = path.with_name(path.stem + ".tmp.png")
     fig.tight_layout()
-    fig.savefig(tmp, dpi=90)
-    os.replace(tmp, path)
+    with atomic_output(path, binary=True) as handle:
+        fig.savefig(handle, format="png", dpi=90)
     return path
 
 
@@ -369,13 +368,18 @@ def markdown(report: Report) -> str:
 
 
 def write_report(rec: Recording, report: Report, out: Path) -> list[Path]:
-    """summary.md, report.json and the figures into `out` (each written to a temporary name, then renamed)."""
-    out.mkdir(parents=True, exist_ok=True)
-    paths = _figures(rec, report, out)
-    for name, text in (("report.json", json.dumps(report.to_json(), indent=2) + "\n"),
-                       ("summary.md", markdown(report))):
-        tmp = out / (name + ".tmp")
-        tmp.write_text(text, encoding="utf-8")
-        os.replace(tmp, out / name)
-        paths.append(out / name)
+    """summary.md, report.json and the figures into `out` (each written whole or not at all, console/files.py).
+
+    A folder this call created is removed again when nothing could be written into it."""
+    created = make_folders(out)
+    try:
+        for name in (*FIGURES, "report.json", "summary.md"):
+            check_output(out / name)
+        paths = _figures(rec, report, out)
+        for name, text in (("report.json", json.dumps(report.to_json(), indent=2) + "\n"),
+                           ("summary.md", markdown(report))):
+            paths.append(write_atomic(out / name, text))
+    except BaseException:
+        remove_folders(created)
+        raise
     return paths

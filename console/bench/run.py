@@ -10,7 +10,6 @@ from __future__ import annotations
 
 import enum
 import json
-import os
 import time
 from dataclasses import dataclass
 from datetime import datetime, timezone
@@ -18,7 +17,8 @@ from pathlib import Path
 from typing import Any
 
 from console.bench.program import BoundProgram, Program
-from console.errors import InputError, LinkLost
+from console.errors import InputError, LinkLost, OutputError
+from console.files import reason, write_atomic
 from console.loop import ControlLoop, SafetyState, Snapshot, StopCause, VirtualClock, WallClock
 from console.profile import Profile
 from console.record import Recorder, sidecar_path
@@ -105,7 +105,13 @@ class BenchRun:
         else:
             transport = open_url(url, profile.link.baud)
         self.path = recording or _recording_path(out_dir, profile, program)
-        self.recorder = Recorder(self.path, profile, url)
+        try:
+            self.recorder = Recorder(self.path, profile, url)
+        except (OSError, OutputError) as error:
+            transport.close()
+            if isinstance(error, OutputError):
+                raise
+            raise OutputError(str(self.path), f"cannot be written ({reason(error)})") from None
         clock = VirtualClock() if self.fast else WallClock()
         self.loop = ControlLoop(profile, transport, clock, sim=self.sim, recorder=self.recorder, url=url,
                                 on_cycle=self._on_cycle, ui_timeout_s=ui_timeout_s)
@@ -263,6 +269,4 @@ class BenchRun:
                 for b in self.bound.segments
             ],
         }
-        tmp = side.with_name(side.name + ".tmp")
-        tmp.write_text(json.dumps(meta, indent=2) + "\n", encoding="utf-8")
-        os.replace(tmp, side)
+        write_atomic(side, json.dumps(meta, indent=2) + "\n")

@@ -8,10 +8,8 @@ The result is parsed again with tomllib to make sure it is still valid TOML with
 from __future__ import annotations
 
 import math
-import os
 import re
 import tomllib
-from pathlib import Path
 
 _HEADER = re.compile(r"^\s*\[([^\[\]]+)\]\s*(#.*)?$")
 _KEY = re.compile(r"^(\s*)([A-Za-z0-9_-]+)(\s*=\s*)([^#]*?)(\s*#.*)?$")
@@ -66,10 +64,3 @@ def edit_toml(text: str, changes: dict[tuple[str, str], object]) -> str:
         if table[key] != value:
             raise ValueError(f"editing [{sec}] {key} did not take")
     return result
-
-
-def write_atomic(path: Path, text: str) -> None:
-    """Write to a temporary file in the same folder, then rename: never a half-written profile."""
-    tmp = path.with_name(f".{path.name}.tmp")
-    tmp.write_text(text, encoding="utf-8")
-    os.replace(tmp, path)

@@ -17,7 +17,8 @@ from pathlib import Path
 from rich.console import Console
 
 from console.bench.run import BenchRun
-from console.bench.tomledit import edit_toml, write_atomic
+from console.bench.tomledit import edit_toml
+from console.files import write_atomic
 from console.bench.umbmark import UmbmarkResult, corrected_values, return_error, square_program, umbmark
 from console.errors import InputError, LinkLost
 from console.profile import Profile, load_profile

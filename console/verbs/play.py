@@ -16,7 +16,7 @@ import bisect
 import time
 from pathlib import Path
 
-from console.errors import InputError, LinkLost, RobotFault
+from console.errors import InputError, LinkLost, OutputError, RobotFault
 from console.interrupts import Interrupts
 from console.loop import ControlLoop, SafetyState, Snapshot, StopCause, VirtualClock, WallClock
 from console.profile import load_profile
@@ -122,7 +122,7 @@ def _check_output(path: str | None) -> None:
         return
     folder = Path(path).resolve().parent
     if not folder.is_dir():
-        raise InputError("command line", "--record", path, f"a file in an existing folder ({folder} is not one)")
+        raise OutputError(path, f"--record: the folder {folder} does not exist")
 
 
 def _fault_error(snapshot: Snapshot, url: str, record: Path) -> LinkLost | RobotFault | None:
@@ -176,6 +176,7 @@ def run(args: argparse.Namespace) -> int:
         loop.close()
         stats = loop.stats()
         recorder.close(stats, loop.link_stats())
+        error = error or recorder.problem     # a full disk: the run went on, the recording did not
     print(f"play: {stats.cycles} cycles, {stats.overruns} missed periods, period error p99 "
           f"{stats.period_error_p99_s * 1e3:.3f} ms; recording {record} (+ {sidecar_path(record).name})", flush=True)
     if error is not None:

@@ -12,6 +12,7 @@ import json
 from rich.console import Console
 from rich.table import Table
 
+from console.files import STDOUT, atomic_output
 from console.profile import Profile, load_profile
 from shaping.ramp import AxisLimits, plan_ramp
 from shaping.shaper import StopKind, speed_limits
@@ -93,9 +94,10 @@ def _show(figures: dict[str, object]) -> None:
 
 def run(args: argparse.Namespace) -> int:
     figures = envelope_figures(load_profile(args.profile))
-    if args.json:
-        print(json.dumps(figures, indent=2, allow_nan=False))
-    else:
-        _show(figures)
+    with atomic_output(STDOUT) as stdout:      # a full or closed standard output is one line too
+        if args.json:
+            stdout.write(json.dumps(figures, indent=2, allow_nan=False) + "\n")
+        else:
+            _show(figures)
     return 0
 

@@ -9,14 +9,14 @@ from __future__ import annotations
 
 import argparse
 import csv
+import io
 import math
-import os
-import sys
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Callable, TextIO, TypeVar
+from typing import TextIO
 
 from console.errors import DiffdeckError, InputError
+from console.files import PLAIN_NUMBER, STDOUT, atomic_output, check_output, read_input
 from console.profile import RATE_HZ_RANGE, Profile, load_profile
 from shaping.envelope import Bound
 from shaping.ramp import plan_ramp
@@ -35,7 +35,7 @@ BOUND_TEXT = {None: "", **{bound: bound.value for bound in Bound}}
 # One %-format per row is several times faster than csv.writer on floats, and 10 significant digits (far below a
 # micrometre per second) read better than 17. Bound names hold no comma or quote, so no CSV quoting is needed.
 ROW_FORMAT = "%.10g," * (len(OUTPUT_HEADER) - 1) + "%s\n"
-T = TypeVar("T")
+MAX_DURATION_S = 24 * 3600.0  # a day of shaping is 8.6 million rows at 100 Hz: anything longer is a mistake
 
 
 @dataclass(frozen=True, slots=True)
@@ -65,51 +65,50 @@ def read_requests(path: str | Path) -> Requests:
     """Read and check a request trace; InputError names the file, line, field, value and what is allowed."""
     file = str(path)
     try:
-        handle = open(path, newline="", encoding="utf-8-sig")  # a spreadsheet may lead with a BOM
-    except OSError as error:
-        raise InputError(file, "file", file, f"cannot be read ({error.strerror})") from None
+        text = read_input(path, "a request trace (CSV)").decode("utf-8-sig")  # a spreadsheet may lead with a BOM
+    except UnicodeDecodeError:
+        raise InputError(file, "file", file, "not UTF-8 text; a request trace is a UTF-8 CSV file") from None
     times: list[float] = []
     speeds: list[float] = []
     turns: list[float] = []
-    with handle:
-        reader = csv.reader(handle)
-        try:
-            header = next(reader, None)
-            if header is None or [name.strip() for name in header] != list(INPUT_HEADER):
-                raise InputError(f"{file}, line 1", "header", ",".join(header or []), "exactly " + ",".join(
-                    INPUT_HEADER))
-            previous = -math.inf
-            for row in reader:
-                if not row or (len(row) == 1 and not row[0].strip()):
-                    continue
-                where = f"{file}, line {reader.line_num}"
-                if len(row) != len(INPUT_HEADER):
-                    raise InputError(where, "row", ",".join(row), f"{len(INPUT_HEADER)} fields: "
-                                                                  + ",".join(INPUT_HEADER))
-                t, v, omega = (_number(where, name, text) for name, text in zip(INPUT_HEADER, row))
-                if t < 0.0 or t <= previous:
-                    allowed = "at least 0" if previous == -math.inf else f"greater than the previous row's {previous:g}"
-                    raise InputError(where, "t_s", row[0], f"a time in s {allowed} (times must increase)")
-                previous = t
-                times.append(t)
-                speeds.append(v)
-                turns.append(omega)
-        except UnicodeDecodeError:
-            raise InputError(file, "file", file, "not UTF-8 text; a request trace is a UTF-8 CSV file") from None
-        except csv.Error as error:
-            raise InputError(f"{file}, line {reader.line_num}", "row", "", f"valid CSV ({error})") from None
+    reader = csv.reader(io.StringIO(text, newline=""))
+    try:
+        header = next(reader, None)
+        if header is None or [name.strip() for name in header] != list(INPUT_HEADER):
+            raise InputError(f"{file}, line 1", "header", ",".join(header or [])[:80], "exactly " + ",".join(
+                INPUT_HEADER))
+        previous = -math.inf
+        for row in reader:
+            if not row or (len(row) == 1 and not row[0].strip()):
+                continue
+            where = f"{file}, line {reader.line_num}"
+            if len(row) != len(INPUT_HEADER):
+                raise InputError(where, "row", ",".join(row)[:80], f"{len(INPUT_HEADER)} fields: "
+                                                                   + ",".join(INPUT_HEADER))
+            t, v, omega = (_number(where, name, text) for name, text in zip(INPUT_HEADER, row))
+            if t < 0.0 or t <= previous:
+                allowed = "at least 0" if previous == -math.inf else f"greater than the previous row's {previous:g}"
+                raise InputError(where, "t_s", row[0], f"a time in s {allowed} (times must increase)")
+            if t > MAX_DURATION_S:
+                rows = t * DEFAULT_RATE_HZ
+                raise InputError(where, "t_s", row[0][:40], f"at most {MAX_DURATION_S:g} s (24 h): shaping up to it "
+                                 f"at {DEFAULT_RATE_HZ:g} Hz would write {rows:.3g} rows, about {_size_text(rows)}")
+            previous = t
+            times.append(t)
+            speeds.append(v)
+            turns.append(omega)
+    except csv.Error as error:
+        raise InputError(f"{file}, line {reader.line_num}", "row", "", f"valid CSV ({error})") from None
     if not times:
         raise InputError(file, "rows", "(none)", "at least one request row after the header")
     return Requests(times, speeds, turns)
 
 
 def _number(where: str, name: str, text: str) -> float:
-    try:
-        value = float(text)
-    except ValueError:
-        value = math.nan
+    """A plain decimal number: float() alone would also take "1_0" (as 10), "nan" and "inf"."""
+    value = float(text) if PLAIN_NUMBER.fullmatch(text) else math.nan
     if not math.isfinite(value):
-        raise InputError(where, name, text, "a finite number")
+        raise InputError(where, name, text[:40], "a finite number")
     return value
 
 
@@ -169,38 +168,45 @@ def _check_options(args: argparse.Namespace) -> None:
     low, high = RATE_HZ_RANGE
     if not (math.isfinite(args.rate_hz) and low <= args.rate_hz <= high):
         raise InputError("command line", "--rate-hz", args.rate_hz, f"a number from {low:g} to {high:g} (Hz)")
-    if args.until_s is not None and not (math.isfinite(args.until_s) and args.until_s > 0.0):
-        raise InputError("command line", "--until-s", args.until_s, "a time greater than 0 (s)")
-    if args.output is not None:
-        folder = Path(args.output).resolve().parent
-        if not folder.is_dir():
-            raise InputError("command line", "-o", args.output, f"a file in an existing folder ({folder} is not one)")
+    if args.until_s is not None and not (math.isfinite(args.until_s) and 0.0 < args.until_s <= MAX_DURATION_S):
+        rows = args.until_s * args.rate_hz if math.isfinite(args.until_s) and args.until_s > 0.0 else None
+        size = f"; this one would write {rows:.3g} rows, about {_size_text(rows)}" if rows else ""
+        raise InputError("command line", "--until-s", args.until_s,
+                         f"a time greater than 0 and at most {MAX_DURATION_S:g} s (24 h){size}")
+    if args.output is not None and args.output != STDOUT:
+        check_output(args.output)
 
 
-def write_atomically(path: str | Path, fill: Callable[[TextIO], T]) -> T:
-    """Run fill(handle) on a new file beside `path`, then rename it into place; on any error remove it.
+def _size_text(rows: float) -> str:
+    """Roughly how much text `rows` output rows take (a row with typical ten-digit figures)."""
+    sample = ROW_FORMAT % (12345.67, 1.5, -0.25, 1.234567891, -0.2345678912, 0.1234567891, -1.234567891e-05,
+                           12.34567891, 13.45678912, "wheel accel")
+    size = rows * len(sample)
+    for unit in ("bytes", "kB", "MB", "GB", "TB", "PB"):
+        if size < 1000.0 or unit == "PB":
+            break
+        size /= 1000.0
+    return f"{size:.3g} {unit}"
 
-    The rename is atomic on one file system, so `path` holds either its old content or the complete new one.
-    """
-    target = Path(path)
-    part = target.with_name(f".{target.name}.{os.getpid()}.part")
-    try:
-        with open(part, "x", newline="", encoding="utf-8") as handle:
-            result = fill(handle)
-        os.replace(part, target)
-    except BaseException:
-        part.unlink(missing_ok=True)
-        raise
-    return result
+
+def _check_settle_bound(profile: Profile, requests: Requests, rate_hz: float) -> None:
+    """Without --until-s the output runs until it settles; a profile whose ramps take hours (0.001 m/s^2 to reach
+    100 m/s) could then run past the day's bound after the last request: refused up front, saying why."""
+    end_s = requests.t_s[-1] + _settle_allowance_s(profile)
+    if end_s > MAX_DURATION_S:
+        rows = end_s * rate_hz
+        raise InputError(str(profile.path), "limits", f"{_settle_allowance_s(profile):.4g} s to settle",
+                         f"the output ends by {MAX_DURATION_S:g} s (24 h), but with these limits it may run to "
+                         f"{end_s:.4g} s ({rows:.3g} rows, about {_size_text(rows)}); give --until-s T")
 
 
 def run(args: argparse.Namespace) -> int:
     _check_options(args)
     profile = load_profile(args.profile)
     requests = read_requests(args.requests)
+    if args.until_s is None:
+        _check_settle_bound(profile, requests, args.rate_hz)
     options = {"rate_hz": args.rate_hz, "mode": Mode(args.mode), "until_s": args.until_s}
-    if args.output is None:
-        shape(profile, requests, sys.stdout, **options)
-    else:
-        write_atomically(args.output, lambda handle: shape(profile, requests, handle, **options))
+    with atomic_output(args.output or STDOUT) as handle:
+        shape(profile, requests, handle, **options)
     return 0

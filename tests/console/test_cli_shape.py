@@ -20,7 +20,7 @@ import pytest
 
 from console.cli import main
 from console.profile import load_profile
-from console.verbs.shape import OUTPUT_HEADER, write_atomically
+from console.verbs.shape import OUTPUT_HEADER
 
 WREN = Path(__file__).resolve().parents[2] / "profiles" / "wren.toml"
 PROFILE = load_profile(WREN)
@@ -171,7 +171,7 @@ def test_bad_trace_gives_one_line_exit_2_and_leaves_the_output_alone(
 @pytest.mark.parametrize(("options", "message"), [
     (["--rate-hz", "5"], "command line: --rate-hz = 5.0: a number from 10 to 1000 (Hz)"),
     (["--rate-hz", "nan"], "command line: --rate-hz = nan: a number from 10 to 1000 (Hz)"),
-    (["--until-s", "0"], "command line: --until-s = 0.0: a time greater than 0 (s)"),
+    (["--until-s", "0"], "command line: --until-s = 0.0: a time greater than 0 and at most 86400 s (24 h)"),
 ])
 def test_bad_options(tmp_path: Path, capsys: pytest.CaptureFixture[str], options: list[str], message: str) -> None:
     requests = tmp_path / "requests.csv"
@@ -184,11 +184,11 @@ def test_output_into_a_missing_folder_and_a_missing_trace(tmp_path: Path, capsys
     requests = tmp_path / "requests.csv"
     requests.write_text(HEADER + "0,0.5,0\n")
     target = tmp_path / "nowhere" / "out.csv"
-    assert main(["shape", str(WREN), str(requests), "-o", str(target)]) == 2
-    assert capsys.readouterr().err.startswith(f"diffdeck: command line: -o = {str(target)!r}: a file in an existing")
+    assert main(["shape", str(WREN), str(requests), "-o", str(target)]) == 6
+    assert capsys.readouterr().err == f"diffdeck: {target}: the folder {target.parent} does not exist\n"
     missing = tmp_path / "missing.csv"
     assert main(["shape", str(WREN), str(missing)]) == 2
-    assert capsys.readouterr().err.startswith(f"diffdeck: {missing}: file = {str(missing)!r}: cannot be read")
+    assert capsys.readouterr().err.startswith(f"diffdeck: {missing}: file = {str(missing)!r}: no such file")
 
 
 def test_bad_profile_is_reported_before_anything_is_written(tmp_path: Path,
@@ -201,19 +201,3 @@ def test_bad_profile_is_reported_before_anything_is_written(tmp_path: Path,
     assert main(["shape", str(profile), str(requests), "-o", str(out)]) == 2
     assert capsys.readouterr().err.startswith(f"diffdeck: {profile}: limits.speed_mps = 0: ")
     assert not out.exists()
-
-
-def test_write_atomically_keeps_the_old_file_when_writing_fails(tmp_path: Path) -> None:
-    target = tmp_path / "out.csv"
-    target.write_text("old\n")
-
-    def half_then_fail(handle: io.TextIOBase) -> None:
-        handle.write("new, half written")
-        raise OSError("disk full")
-
-    with pytest.raises(OSError, match="disk full"):
-        write_atomically(target, half_then_fail)
-    assert target.read_text() == "old\n"
-    assert [p.name for p in tmp_path.iterdir()] == ["out.csv"]
-    assert write_atomically(target, lambda handle: handle.write("new\n")) == 4
-    assert target.read_text() == "new\n"

@@ -18,7 +18,7 @@ from pathlib import Path
 
 import pytest
 
-from console.errors import InputError, LinkLost
+from console.errors import InputError, LinkOpenError, OutputError
 from console.loop import SafetyState, StopCause
 from console.loop_process import ENDED, LoopProcess, LoopProcessEnded
 from console.profile import load_profile
@@ -186,7 +186,7 @@ def _with_url(profile, url: str):
 def test_start_up_errors_come_back_as_the_same_one_line_errors(profile, tmp_path) -> None:
     url, holder = _refused_url()
     try:
-        cases = [("nonsense://robot", InputError), (url, LinkLost)]
+        cases = [("nonsense://robot", InputError), (url, LinkOpenError)]
         for bad_url, error_type in cases:
             with pytest.raises(error_type) as in_process:
                 open_url(bad_url, profile.link.baud)
@@ -198,6 +198,6 @@ def test_start_up_errors_come_back_as_the_same_one_line_errors(profile, tmp_path
         holder.close()
     blocker = tmp_path / "a-file"
     blocker.write_text("")
-    with pytest.raises(InputError) as unwritable:
+    with pytest.raises(OutputError) as unwritable:      # cannot write the output: exit 6
         LoopProcess(profile, record_path=blocker / "session.csv")
     assert str(blocker / "session.csv") in str(unwritable.value) and "\n" not in str(unwritable.value)

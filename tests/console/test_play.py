@@ -63,12 +63,12 @@ def test_bad_trace_is_one_line_exit_2_and_no_recording(tmp_path: Path, capsys) -
     assert not record.exists()
 
 
-def test_a_missing_device_is_link_lost_exit_3(tmp_path: Path, trace: Path, capsys) -> None:
+def test_a_missing_device_cannot_be_opened_exit_5(tmp_path: Path, trace: Path, capsys) -> None:
     record = tmp_path / "none.csv"
     missing = str(tmp_path / "ttyACM9")
-    assert main(["play", str(WREN), str(trace), "--link", missing, "--yes", "--record", str(record)]) == 3
+    assert main(["play", str(WREN), str(trace), "--link", missing, "--yes", "--record", str(record)]) == 5
     err = capsys.readouterr().err.strip().splitlines()
-    assert len(err) == 1 and "link lost" in err[0] and missing in err[0]
+    assert len(err) == 1 and "cannot open the link" in err[0] and missing in err[0]
     assert not record.exists()
 
 

@@ -131,17 +131,17 @@ def test_speed_is_accepted_exactly_when_the_wheels_can_reach_it(tmp_path_factory
 
 # (demo file, section, key, TOML literal or None to delete, dotted key in the message, value as shown, allowed)
 BAD = [
-    ("wren", "limits", "speed_mps", "true", "limits.speed_mps", "True", "a number > 0 (m/s)"),
-    ("wren", "limits", "speed_mps", '"fast"', "limits.speed_mps", "'fast'", "a number > 0"),
-    ("wren", "limits", "speed_mps", "nan", "limits.speed_mps", "nan", "a number > 0"),
-    ("wren", "limits", "speed_mps", "inf", "limits.speed_mps", "inf", "a number > 0"),
-    ("wren", "limits", "speed_mps", "0", "limits.speed_mps", "0", "a number > 0"),
-    ("wren", "limits", "speed_mps", "-1.0", "limits.speed_mps", "-1.0", "a number > 0"),
-    ("wren", "limits", "speed_mps", None, "limits.speed_mps", "(missing)", "required; a number > 0 (m/s)"),
+    ("wren", "limits", "speed_mps", "true", "limits.speed_mps", "True", "a number from 0.001 to 100 (m/s)"),
+    ("wren", "limits", "speed_mps", '"fast"', "limits.speed_mps", "'fast'", "a number from 0.001 to 100"),
+    ("wren", "limits", "speed_mps", "nan", "limits.speed_mps", "nan", "a number from 0.001 to 100"),
+    ("wren", "limits", "speed_mps", "inf", "limits.speed_mps", "inf", "a number from 0.001 to 100"),
+    ("wren", "limits", "speed_mps", "0", "limits.speed_mps", "0", "a number from 0.001 to 100"),
+    ("wren", "limits", "speed_mps", "-1.0", "limits.speed_mps", "-1.0", "a number from 0.001 to 100"),
+    ("wren", "limits", "speed_mps", None, "limits.speed_mps", "(missing)", "required; a number from 0.001 to 100 (m/s)"),
     ("wren", "limits", "speed_mps", "2.0", "limits.speed_mps", "2.0",
      "at most wheel_rate_radps x wheel_radius_m = 1.24 m/s"),
     ("wren", "limits", "reverse_speed_mps", "1.3", "limits.reverse_speed_mps", "1.3", "at most wheel_rate_radps"),
-    ("wren", "limits", "top_speed", "1.0", "limits.top_speed", "1.0", "unknown key; [limits] takes"),
+    ("wren", "limits", "top_speed", "1.0", "limits.top_speed", "1.0", "unknown key ([limits] takes"),
     ("wren", "limits", "turn_rate_radps", "9.0", "limits.turn_rate_radps", "9.0",
      "at most 2 x wheel_rate_radps x wheel_radius_m / track_width_m = 7.294 rad/s"),
     ("wren", "limits", "stop_decel_mps2", "0.5", "limits.stop_decel_mps2", "0.5", "at least decel_mps2 = 1 m/s^2"),
@@ -151,14 +151,14 @@ BAD = [
     ("wren", "limits", "turn_accel_radps2", "13.0", "limits.turn_accel_radps2", "13.0",
      "at most 2 x wheel_accel_radps2 x wheel_radius_m / track_width_m = 12.76 rad/s^2"),
     ("wren", "limits", "sideways_accel_mps2", "-0.5", "limits.sideways_accel_mps2", "-0.5",
-     "a number > 0 (m/s^2; optional)"),
-    ("wren", "geometry", "wheel_radius_m", "-0.062", "geometry.wheel_radius_m", "-0.062", "a number > 0"),
+     "a number from 0.001 to 1000 (m/s^2; optional)"),
+    ("wren", "geometry", "wheel_radius_m", "-0.062", "geometry.wheel_radius_m", "-0.062", "a number from 0.001 to 10"),
     ("wren", "geometry", "track_width_m", None, "geometry.track_width_m", "(missing)", "required"),
     ("wren", "robot", "name", '""', "robot.name", "''", "a non-empty string"),
     ("wren", "units", "unit", '"furlongs"', "units.unit", "'furlongs'",
      'one of "radps", "rpm", "ticks_per_s", "duty"'),
     ("wren", "units", "trim_left", "1.8", "units.trim_left", "1.8", "a number from 0.5 to 1.5"),
-    ("wren", "units", "gear_ratio", "0", "units.gear_ratio", "0", "a number > 0"),
+    ("wren", "units", "gear_ratio", "0", "units.gear_ratio", "0", "a number from 0.001 to 10000"),
     ("wren", "units", "invert_left", "1", "units.invert_left", "1", "true or false"),
     ("wren", "units", "swap_encoders", '"no"', "units.swap_encoders", "'no'", "true or false"),
     ("bramble", "units", "ticks_per_rev", None, "units.ticks_per_rev", "(missing)", "required"),
@@ -168,19 +168,19 @@ BAD = [
     ("wren", "link", "rate_hz", "5", "link.rate_hz", "5", "a number from 10 to 1000 (Hz)"),
     ("wren", "link", "rate_hz", "2000.0", "link.rate_hz", "2000.0", "a number from 10 to 1000 (Hz)"),
     ("wren", "link", "protocol", '"modbus"', "link.protocol", "'modbus'", 'one of "diffdeck", "template"'),
-    ("wren", "link", "baud", "115200.5", "link.baud", "115200.5", "a whole number >= 1"),
-    ("wren", "link", "baud", "true", "link.baud", "True", "a whole number >= 1"),
+    ("wren", "link", "baud", "115200.5", "link.baud", "115200.5", "a whole number from 50 to 12000000"),
+    ("wren", "link", "baud", "true", "link.baud", "True", "a whole number from 50 to 12000000"),
     ("wren", "link", "url", "5", "link.url", "5", "a non-empty string"),
     ("wren", "link", "watchdog_s", "0.01", "link.watchdog_s", "0.01", "at least two command periods"),
     ("wren", "link", "telemetry_timeout_s", "0.02", "link.telemetry_timeout_s", "0.02",
      "at least two telemetry periods"),
     ("wren", "link", "protocol", '"template"', "link.template", "(missing)", "required; a [link.template] section"),
-    ("wren", "sim", "seed", "-1", "sim.seed", "-1", "a whole number >= 0"),
-    ("wren", "sim", "encoder_ticks_per_rev", "0", "sim.encoder_ticks_per_rev", "0", "a whole number >= 1"),
+    ("wren", "sim", "seed", "-1", "sim.seed", "-1", "a whole number from 0 to 9223372036854775807"),
+    ("wren", "sim", "encoder_ticks_per_rev", "0", "sim.encoder_ticks_per_rev", "0", "a whole number from 1 to 10000000"),
     ("wren", "sim", "wheel_radius_ratio", "2.0", "sim.wheel_radius_ratio", "2.0", "a number from 0.5 to 1.5"),
-    ("wren", "sim", "noise_radps", "-0.1", "sim.noise_radps", "-0.1", "a number >= 0 (rad/s"),
+    ("wren", "sim", "noise_radps", "-0.1", "sim.noise_radps", "-0.1", "a number from 0 to 1000 (rad/s"),
     ("wren", "sim", "dead_left", '"yes"', "sim.dead_left", "'yes'", "true or false"),
-    ("wren", "sim", "mass_kg", "9.0", "sim.mass_kg", "9.0", "unknown key; [sim] takes"),
+    ("wren", "sim", "mass_kg", "9.0", "sim.mass_kg", "9.0", "unknown key ("),
     ("wren-template", "link.template", "command_format", '"drv {seq} {left} {speed}"',
      "link.template.command_format", "'drv {seq} {left} {speed}'", "unknown field {speed}; allowed fields:"),
     ("wren-template", "link.template", "command_format", '"drv {0} {left} {right}"',
@@ -188,7 +188,20 @@ BAD = [
     ("wren-template", "link.template", "command_format", '"drv {seq} {left}"', "link.template.command_format",
      "'drv {seq} {left}'", "must contain {right}"),
     ("wren-template", "link.template", "command_format", '"drv {left:d} {right}"', "link.template.command_format",
-     "'drv {left:d} {right}'", "cannot render with left = -12.5, right = 3.25, seq = 42"),
+     "'drv {left:d} {right}'", "{left:d} is not a plain number field"),
+    ("wren-template", "link.template", "command_format", '"drv {left.__class__} {right}"',
+     "link.template.command_format", "'drv {left.__class__} {right}'", "unknown field {left.__class__}"),
+    ("wren-template", "link.template", "command_format", '"drv {left!r} {right}"',
+     "link.template.command_format", "'drv {left!r} {right}'", "{left!r:} is not a plain number field"),
+    ("wren-template", "link.template", "command_format", '"drv {left:{seq}} {right}"',
+     "link.template.command_format", "'drv {left:{seq}} {right}'", "is not a plain number field"),
+    ("wren-template", "link.template", "command_format", '"drv {left:300.4f} {right}"',
+     "link.template.command_format", "'drv {left:300.4f} {right}'", "renders wider than the robot's line (255 bytes)"),
+    ("wren-template", "link.template", "command_format", '"drv {left:500000000} {right}"',
+     "link.template.command_format", "'drv {left:500000000} {right}'", "renders wider than the robot's line"),
+    ("wren-template", "link.template", "command_format", '"drv {left:120.3f} {right:120.3f} {seq:20d}"',
+     "link.template.command_format", "'drv {left:120.3f} {right:120.3f} {seq:20d}'",
+     "renders 266 bytes with left = right = -0.909091 (the fastest command), more than the robot's line of 255 bytes"),
     ("wren-template", "link.template", "command_format", '"drv {left {right}"', "link.template.command_format",
      "'drv {left {right}'", "a Python format string"),
     ("wren-template", "link.template", "command_format", '"drv {left}\\n{right}"', "link.template.command_format",
@@ -233,8 +246,21 @@ def test_template_section_without_template_protocol_is_an_error(tmp_path: Path,
 def test_unknown_section(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
     path, code, out, err = run_check(tmp_path, MINIMAL + "[motors]\nleft = 1\n", capsys)
     assert (code, out) == (2, "")
-    assert err == f"diffdeck: {path}: motors = {{'left': 1}}: unknown section; a profile has [robot], [geometry], " \
-                  "[limits], [units], [link], [sim]\n"
+    assert err == f"diffdeck: {path}: [motors] = {{a table}}: unknown section (a profile has [robot], [geometry], " \
+                  "[limits], [units], [link], [sim])\n"
+
+
+def test_misspelt_key_and_section_are_named_with_the_closest_known_one(tmp_path: Path,
+                                                                      capsys: pytest.CaptureFixture[str]) -> None:
+    text = edit((PROFILES / "wren.toml").read_text(), "limits", "speed_mps", None) + "\n"
+    text = text.replace("[limits]\n", "[limits]\nsped_mps = 1.0\n")
+    path, code, out, err = run_check(tmp_path, text, capsys)
+    assert (code, out) == (2, "")
+    assert err == f"diffdeck: {path}: limits.sped_mps = 1.0: unknown key (did you mean speed_mps?)\n"
+    text = (PROFILES / "wren.toml").read_text().replace("[limits]", "[limit]")
+    path, code, out, err = run_check(tmp_path, text, capsys)
+    assert (code, out) == (2, "")
+    assert err == f"diffdeck: {path}: [limit] = {{a table}}: unknown section (did you mean [limits]?)\n"
 
 
 def test_section_that_is_not_a_table(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
@@ -276,3 +302,62 @@ def test_profile_envelope_uses_its_geometry_and_limits() -> None:
     profile = load_profile(PROFILES / "bramble.toml")
     assert profile.envelope.geometry is profile.geometry and profile.envelope.limits is profile.limits
     assert math.isclose(profile.envelope.top_speed_mps, profile.limits.speed_mps)
+
+
+# The wire carries wheel rates as +-2000000.000 firmware units (PROTOCOL.md section 10). A wheel rate w rad/s is
+# w / (2 pi) revolutions per second of the wheel (one revolution is 2 pi rad: SI Brochure, 9th ed., 2019, table 4),
+# gear_ratio times that at the motor, and ticks_per_rev ticks per motor revolution.
+@pytest.mark.parametrize(("unit", "gear", "ticks", "fits"), [
+    ("ticks_per_s", 50.0, 100000.0, False),      # the case from issue 9: passed profile check before
+    ("ticks_per_s", 30.0, 4096.0, True),
+    ("rpm", 10000.0, 48.0, False),               # 20 rad/s x 10000 = 1.9 million rpm, x 1.5 trim: past it
+    ("rpm", 6000.0, 48.0, True),
+])
+def test_the_fastest_wheel_command_must_fit_the_wire(tmp_path: Path, capsys: pytest.CaptureFixture[str], unit: str,
+                                                    gear: float, ticks: float, fits: bool) -> None:
+    text = (PROFILES / "wren.toml").read_text()
+    wheel_rate = load_profile(PROFILES / "wren.toml").limits.wheel_rate_radps
+    for key, literal in (("unit", f'"{unit}"'), ("gear_ratio", repr(gear)), ("ticks_per_rev", repr(ticks)),
+                         ("trim_left", "1.5")):
+        text = edit(text, "units", key, literal)
+    revs_per_s = wheel_rate / (2.0 * math.pi) * gear * 1.5
+    top = revs_per_s * ticks if unit == "ticks_per_s" else revs_per_s * 60.0
+    assert (top <= 2_000_000.0) == fits, "the case table itself is wrong"
+    path, code, out, err = run_check(tmp_path, text, capsys)
+    if fits:
+        assert (code, err) == (0, "")
+    else:
+        key = "ticks_per_rev" if unit == "ticks_per_s" else "gear_ratio"
+        assert code == 2 and err.count("\n") == 1
+        assert err.startswith(f"diffdeck: {path}: units.{key} = {ticks if key == 'ticks_per_rev' else gear}: ")
+        assert f"the fastest wheel command is {top:.4g} {unit}: beyond the wire's +-2000000.000" in err
+
+
+@pytest.mark.parametrize(("key", "literal"), [("accel_mps2", "1e-300"), ("decel_mps2", "1e-300"),
+                                              ("jerk_mps3", "1e-300"), ("speed_mps", "1e-300"),
+                                              ("wheel_rate_radps", "1e300"), ("turn_jerk_radps3", "1e300")])
+def test_numbers_that_would_overflow_a_derived_figure_are_refused(tmp_path: Path, capsys: pytest.CaptureFixture[str],
+                                                                  key: str, literal: str) -> None:
+    path, code, out, err = run_check(tmp_path, edit((PROFILES / "wren.toml").read_text(), "limits", key, literal),
+                                     capsys)
+    assert (code, out, err.count("\n")) == (2, "", 1)
+    assert err.startswith(f"diffdeck: {path}: limits.{key} = {float(literal)!r}: a number from "), err
+
+
+def test_a_profile_nested_too_deeply_is_one_line(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
+    text = MINIMAL + "x = " + "[" * 2000 + "]" * 2000
+    path, code, out, err = run_check(tmp_path, text, capsys)
+    assert (code, out) == (2, "")
+    assert err == f"diffdeck: {path}: TOML syntax = '': arrays or tables nested too deeply for a profile\n"
+
+
+# Nested quantifiers over the same characters backtrack exponentially on a line that fails at its end (Friedl,
+# Mastering Regular Expressions, 3rd ed., O'Reilly 2006, ch. 6, "A Global View of Backtracking" / runaway regex).
+@pytest.mark.parametrize("regex", [r"^(?P<left>(\d+)+) (?P<right>\d+)$", r"(?P<left>(a|a)*)x(?P<right>\d)"])
+def test_a_telemetry_regex_that_backtracks_for_ever_is_refused(tmp_path: Path, capsys: pytest.CaptureFixture[str],
+                                                               regex: str) -> None:
+    text = edit((PROFILES / "wren-template.toml").read_text(), "link.template", "telemetry_regex", f"'{regex}'")
+    path, code, out, err = run_check(tmp_path, text, capsys)
+    assert (code, out, err.count("\n")) == (2, "", 1)
+    assert err.startswith(f"diffdeck: {path}: link.template.telemetry_regex = {regex!r}: takes more than 0.05 s on "
+                          "a line of 254 characters repeating "), err

@@ -21,6 +21,7 @@ import serial
 from console.loop import LoopStats
 from console.profile import load_profile
 from console.record import Recorder, default_path, read_csv, sidecar_path
+from tests.console.faults import DiskFillsUp
 
 ROOT = Path(__file__).resolve().parents[2]
 WREN = ROOT / "profiles" / "wren.toml"
@@ -164,3 +165,66 @@ def test_default_path_is_under_recordings_with_profile_name_and_utc_time(tmp_pat
     Recorder(first, profile, "sim").close()
     second = default_path(profile, when)                # never overwrites an earlier session
     assert second != first and second.parent == Path("recordings")
+
+
+def test_a_full_disk_stops_recording_keeps_whole_rows_and_the_sidecar_says_why(tmp_path: Path) -> None:
+    path = tmp_path / "full.csv"
+    recorder = Recorder(path, load_profile(WREN), "/dev/ttyACM0", flush_s=0.01)
+    recorder._file = DiskFillsUp(recorder._file, room=1000)     # the header is already written
+    for k in range(200):
+        recorder.put((k * 0.01, 0.1, 0.2, 0.3, 0.4, 0.5, 0.6, 0.7, 0.8, "armed"))
+        if k % 20 == 0:
+            time.sleep(0.03)            # let the writer drain in several batches: some fit, then the disk is full
+    recorder.close()
+    lines = path.read_text(encoding="utf-8").splitlines(keepends=True)
+    assert lines[0] == HEADER + "\n" and len(lines) > 1
+    assert all(line.endswith("\n") and line.count(",") == HEADER.count(",") for line in lines), lines[-1]
+    assert len(lines) - 1 == recorder.written < 200
+    meta = json.loads(sidecar_path(path).read_text(encoding="utf-8"))
+    assert meta["write_error"] == (f"recording stopped after {recorder.written} rows (No space left on device); "
+                                   "the rows before are complete")
+    assert meta["rows_written"] + meta["dropped_rows"] == 200
+    assert recorder.problem is not None and recorder.problem.exit_code == 6
+    assert str(recorder.problem).startswith(f"{path}: recording stopped after ")
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["full.csv", "full.csv.json"]
+
+
+def test_when_even_the_sidecar_cannot_be_written_the_recorder_says_so_and_leaves_no_temporary_file(
+        tmp_path: Path, monkeypatch) -> None:
+    from console import files
+
+    path = tmp_path / "full.csv"
+    recorder = Recorder(path, load_profile(WREN), "/dev/ttyACM0")
+    recorder.put((0.01, 0.1, 0.2, 0.3, 0.4, 0.5, 0.6, 0.7, 0.8, "armed"))
+    real_fdopen = os.fdopen
+    monkeypatch.setattr(files.os, "fdopen", lambda *a, **k: DiskFillsUp(real_fdopen(*a, **k), room=0))
+    recorder.close()
+    assert str(recorder.problem) == f"{sidecar_path(path)}: cannot be written (No space left on device)"
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["full.csv"]
+    assert path.read_text(encoding="utf-8").splitlines()[1].startswith("0.01,")
+
+
+def test_play_on_a_disk_that_fills_up_stops_the_robot_and_ends_with_exit_6(tmp_path: Path, monkeypatch,
+                                                                           capsys) -> None:
+    from console.cli import main
+    from console.verbs import play
+
+    class FillingRecorder(Recorder):
+        def __init__(self, *args, **kwargs) -> None:
+            super().__init__(*args, **kwargs)
+            self._file = DiskFillsUp(self._file, room=3000)
+
+    monkeypatch.setattr(play, "Recorder", FillingRecorder)
+    trace = tmp_path / "trace.csv"
+    trace.write_text("t_s,v_mps,omega_radps\n0.0,0.4,0.0\n1.0,0.0,0.0\n", encoding="utf-8")
+    record = tmp_path / "rec.csv"
+    code = main(["play", str(WREN), str(trace), "--fast", "--yes", "--record", str(record)])
+    out, err = capsys.readouterr()
+    assert code == 6
+    assert err.startswith(f"diffdeck: {record}: recording stopped after ") and err.count("\n") == 1, err
+    assert "play: stopped (program end)" in out          # the run went on to a controlled stop at rest
+    lines = record.read_text(encoding="utf-8").splitlines(keepends=True)
+    assert all(line.endswith("\n") and line.count(",") == lines[0].count(",") for line in lines)
+    meta = json.loads(sidecar_path(record).read_text(encoding="utf-8"))
+    assert meta["write_error"].startswith("recording stopped after ") and meta["dropped_rows"] > 0
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["rec.csv", "rec.csv.json", "trace.csv"]

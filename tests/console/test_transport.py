@@ -10,7 +10,7 @@ import pytest
 import serial
 import serial.rfc2217
 
-from console.errors import InputError, LinkLost
+from console.errors import InputError, LinkLost, LinkOpenError
 from console.protocol import Decoder, Heartbeat, Telemetry, WheelCommand, encode
 from console.transport import memory_pair, open_url
 
@@ -99,10 +99,20 @@ def test_closed_pty_gives_link_lost():
         os.close(slave)
 
 
-def test_missing_device_is_link_lost_naming_it():
-    with pytest.raises(LinkLost) as lost:
+def test_missing_device_cannot_be_opened_naming_it():
+    with pytest.raises(LinkOpenError) as lost:
         open_url("/dev/diffdeck-no-such-port", 115200)
-    assert "/dev/diffdeck-no-such-port" in str(lost.value)
+    assert str(lost.value) == ("cannot open the link /dev/diffdeck-no-such-port: No such file or directory; "
+                               "nothing was sent")
+    assert lost.value.exit_code == 5
+
+
+@pytest.mark.parametrize("url", ["socket://127.0.0.1:99999", "socket://127.0.0.1", "socket://", "socket://:80",
+                                 "rfc2217://host", " ", "ttyUSB0", "/dev/tty USB0"])
+def test_malformed_urls_are_bad_input(url: str) -> None:
+    with pytest.raises(InputError) as bad:
+        open_url(url, 115200)
+    assert bad.value.exit_code == 2 and bad.value.key == "url"
 
 
 def test_unknown_url_scheme_is_input_error():

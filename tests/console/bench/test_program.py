@@ -96,7 +96,7 @@ def test_bad_programs_are_one_line_naming_file_key_and_what_is_allowed(
 def test_unknown_builtin_lists_the_builtins() -> None:
     with pytest.raises(ProgramError, match="step, ramp, chirp"):
         resolve_program("wiggle")
-    with pytest.raises(ProgramError, match="readable"):
+    with pytest.raises(ProgramError, match="no such file"):
         load_program("/nonexistent/program.toml")
 
 

@@ -26,12 +26,13 @@ def _rows(n: int, start: float = 0.01, empty: bool = False) -> str:
 
 
 BAD = [
-    (None, "file", "readable"),
+    (None, "file", "no such file; give the path of a CSV recording"),
     ("", "header", "header beginning t_s,v_req_mps"),
     ("time,speed\n1,2\n", "header", "header beginning"),
     (HEADER + "\n" + _rows(5), "rows", "at least 20"),
-    (HEADER + "\n" + _rows(30) + "0.40,0,zero,0,0,0,0,,,armed\n", "line 32", "numbers in t_s"),
-    (HEADER + "\n" + _rows(30) + "0.40,0,0\n", "line 32", "fields per row"),
+    (HEADER + "\n" + _rows(30) + "0.40,0,zero,0,0,0,0,,,armed\n", "line 32, omega_req_radps = 'zero'",
+     "a finite number, or empty (or nan) where nothing was measured"),
+    (HEADER + "\n" + _rows(30) + "0.40,0,0\n", "line 32 = '3 fields'", "10 comma-separated fields, as in the header"),
     (HEADER + "\n" + _rows(30) + _rows(5, start=0.05), "line 32 t_s", "strictly increasing"),
     (HEADER + "\n" + _rows(30, empty=True), "left_meas_radps", "measured wheel rates"),
 ]
