@@ -95,7 +95,8 @@ def _stretched_rising(dv: float, a0: float, jerk: float, duration: float) -> lis
 class Ramp:
     """An immutable plan: constant-jerk segments from (v0, a0) to (target, 0)."""
 
-    __slots__ = ("_starts", "_states", "_jerks", "duration", "target", "v0", "a0", "_direction", "_pieces", "_split")
+    __slots__ = ("_starts", "_states", "_jerks", "duration", "target", "v0", "a0", "_direction", "_pieces", "_split",
+                 "_peak_accel")
 
     def __init__(self, v0: float, a0: float, target: float, direction: float, pieces: list[_Piece], split: int) -> None:
         self.v0 = v0
@@ -107,6 +108,7 @@ class Ramp:
         states: list[tuple[float, float]] = []
         jerks: list[float] = []
         t, v, a = 0.0, v0, a0
+        peak = 0.0
         for duration, normalised_jerk in pieces:
             if duration <= 0.0:
                 continue
@@ -114,9 +116,11 @@ class Ramp:
             starts.append(t)
             states.append((v, a))
             jerks.append(jerk)
+            peak = max(peak, abs(a))
             v += a * duration + 0.5 * jerk * duration * duration
             a += jerk * duration
             t += duration
+        self._peak_accel = peak
         self._starts = starts
         self._states = states
         self._jerks = jerks
@@ -158,7 +162,7 @@ class Ramp:
 
     def peak_accel(self) -> float:
         """The largest |a| on the way: a is linear within a segment, so at a segment's start (it ends at 0)."""
-        return max((abs(a) for _, a in self._states), default=0.0)
+        return self._peak_accel
 
     def travel(self) -> float:
         """Integral of v over the plan (metres for a speed ramp, radians for a turn-rate ramp)."""

@@ -7,9 +7,11 @@ scalar ramp's limits are the tightest of both axes and of the wheels, which keep
 Otherwise both axes are planned time-optimally and the faster one is stretched to arrive with the slower.
 
 A re-target from a moving state can bend the way between two points that both lie inside the envelope out of it
-(the wheel-rate and sideways limits are not boxes). Such a plan is checked along its way; if it leaves the
-envelope, the shaper first goes to the largest same-curvature part of the target whose way stays inside, and from
-there (at rest in acceleration, so on a straight line) on to the target itself.
+(the wheel-rate and sideways limits are not boxes), and the axis still accelerating from the last plan can push the
+wheels past their acceleration limit. So a plan replaces the one in force only after an exact check of its whole
+way; if the way to the target leaves the envelope, the shaper goes to the largest same-curvature part of the target
+whose way stays inside, or keeps the plan in force and tries again next cycle; from rest it goes on in straight
+lines, which always stay inside (see `Shaper` and `_corner`).
 """
 
 from __future__ import annotations
