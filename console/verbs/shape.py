@@ -113,15 +113,22 @@ def _number(where: str, name: str, text: str) -> float:
 
 
 def _settle_allowance_s(profile: Profile) -> float:
-    """Generous upper bound on the time from the last request to settling: a full reversal on both axes, doubled.
+    """Generous upper bound on the time from the last request to settling.
 
-    Only a fault in the shaper could exceed it; it stops the preview from running forever.
+    After the last request the shaper finishes at most the plan in force, one re-plan made while moving and two
+    straight legs from rest (see shaping.shaper.Shaper): four plans, each no longer than a full reversal on both
+    axes, slowed at most by the share of the wheels' acceleration budget each axis may get. Only a fault in the
+    shaper could exceed it; it stops the preview from running forever.
     """
-    envelope, limits = profile.envelope, profile.limits
+    envelope, limits, geometry = profile.envelope, profile.limits, profile.geometry
     speed = plan_ramp(-envelope.top_reverse_speed_mps, 0.0, envelope.top_speed_mps, speed_limits(limits)).duration
     turn_rate = envelope.top_turn_rate_radps
     turn = plan_ramp(-turn_rate, 0.0, turn_rate, turn_limits(limits)).duration
-    return 2.0 * (speed + turn) + 1.0
+    share = 1.0
+    if limits.wheel_accel_radps2 is not None:
+        need = max(limits.accel_mps2, limits.decel_mps2) + limits.turn_accel_radps2 * geometry.track_width_m / 2
+        share = min(1.0, limits.wheel_accel_radps2 * geometry.wheel_radius_m / need)
+    return 4.0 * (speed + turn) / share + 1.0
 
 
 def shape(profile: Profile, requests: Requests, out: TextIO, *, rate_hz: float = DEFAULT_RATE_HZ,
