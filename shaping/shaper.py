@@ -133,8 +133,9 @@ def real_cubic_roots(c3: float, c2: float, c1: float, c0: float) -> list[float]:
     q = 2.0 * a**3 / 27.0 - a * b / 3.0 + c
     disc = (q / 2.0) ** 2 + (p / 3.0) ** 3
     if disc > 0.0:
-        root = math.sqrt(disc)
-        return [math.cbrt(-q / 2.0 + root) + math.cbrt(-q / 2.0 - root) - shift]
+        # one real root; the larger cube root first, the other from their product -p/3 (no cancellation)
+        big = -math.copysign(math.cbrt(abs(q) / 2.0 + math.sqrt(disc)), q)
+        return [big - p / (3.0 * big) - shift]
     if p == 0.0:
         return [-shift]
     radius = 2.0 * math.sqrt(-p / 3.0)
@@ -476,6 +477,13 @@ class Shaper:
             # a step so small (subnormal) that its limits overflow: it is already done
             return _LineMotion(standstill(1.0), (v, w), target)
         sigma = plan_ramp(0.0, sigma_rate, 1.0, AxisLimits(sigma_accel, sigma_accel, sigma_jerk))
+        if dv != 0.0 and speed.accel != speed.decel:
+            low, high = sigma.extent()
+            if low < 0.0 or high > 1.0:
+                # The way runs past an end of the step and back (the start's acceleration carries it), so the speed
+                # both grows and shrinks on it: the smaller of accel and decel holds on all of it.
+                sigma_accel = min(sigma_accel, min(speed.accel, speed.decel) / abs(dv))
+                sigma = plan_ramp(0.0, sigma_rate, 1.0, AxisLimits(sigma_accel, sigma_accel, sigma_jerk))
         return _LineMotion(sigma, (v, w), target)
 
     def _plan_axes(
@@ -541,18 +549,20 @@ class Shaper:
             left_accel, right_accel = self.envelope.geometry.to_wheels(a, alpha)
             wheel_accel_use = max(abs(left_accel), abs(right_accel)) / limits.wheel_accel_radps2
         jerk_use = max(abs(j) / speed.jerk, abs(turn_jerk) / turn.jerk)
-        # What binds now: an edge of the envelope the output is on; else the limit that holds the plan back from
-        # the target, or that cut the request; else the ramp's own acceleration or jerk limit.
-        bound = None
+        # What binds now, first match: an edge of the envelope the output is on; the limit that keeps the plan from
+        # heading straight to the target; an acceleration limit the ramps use in full; the limit that cut the
+        # request; the jerk limit the ramps use in full.
+        bound: Bound | None = None
         if self._stop is None:
             edge_use, bound = self.envelope.usage(v, w)
             if edge_use < _AT_LIMIT:
-                bound = self._held_by or self._bound
-        if bound is None:
-            if max(accel_use, wheel_accel_use) >= _AT_LIMIT:
-                bound = Bound.WHEEL_ACCEL if wheel_accel_use > accel_use else Bound.ACCEL
-            elif jerk_use >= _AT_LIMIT:
-                bound = Bound.JERK
+                bound = self._held_by
+        if bound is None and max(accel_use, wheel_accel_use) >= _AT_LIMIT:
+            bound = Bound.WHEEL_ACCEL if wheel_accel_use > accel_use else Bound.ACCEL
+        if bound is None and self._stop is None:
+            bound = self._bound
+        if bound is None and jerk_use >= _AT_LIMIT:
+            bound = Bound.JERK
         return Shaped(
             v_req_mps=self._request[0],
             omega_req_radps=self._request[1],
