@@ -96,7 +96,7 @@ class Ramp:
     """An immutable plan: constant-jerk segments from (v0, a0) to (target, 0)."""
 
     __slots__ = ("_starts", "_states", "_jerks", "duration", "target", "v0", "a0", "_direction", "_pieces", "_split",
-                 "_peak_accel")
+                 "peak_accel")
 
     def __init__(self, v0: float, a0: float, target: float, direction: float, pieces: list[_Piece], split: int) -> None:
         self.v0 = v0
@@ -116,11 +116,12 @@ class Ramp:
             starts.append(t)
             states.append((v, a))
             jerks.append(jerk)
-            peak = max(peak, abs(a))
+            if a > peak or -a > peak:
+                peak = a if a > 0.0 else -a
             v += a * duration + 0.5 * jerk * duration * duration
             a += jerk * duration
             t += duration
-        self._peak_accel = peak
+        self.peak_accel = peak  # the largest |a| on the way: a is linear in a segment, so at a segment's start
         self._starts = starts
         self._states = states
         self._jerks = jerks
@@ -159,10 +160,6 @@ class Ramp:
     def joints(self) -> list[float]:
         """Times at which the jerk changes: every segment's start, and the end."""
         return [*self._starts, self.duration]
-
-    def peak_accel(self) -> float:
-        """The largest |a| on the way: a is linear within a segment, so at a segment's start (it ends at 0)."""
-        return self._peak_accel
 
     def travel(self) -> float:
         """Integral of v over the plan (metres for a speed ramp, radians for a turn-rate ramp)."""

@@ -191,7 +191,7 @@ class _AxesMotion:
 
     def peak_accels(self) -> tuple[float, float]:
         """The largest |a| and |alpha| on the way (not necessarily at the same moment)."""
-        return self.speed.peak_accel(), self.turn.peak_accel()
+        return self.speed.peak_accel, self.turn.peak_accel
 
     def sample(self, t: float) -> _Sample:
         return self.speed.sample(t) + self.turn.sample(t)
@@ -229,19 +229,11 @@ class _LineMotion:
 
     def peak_accels(self) -> tuple[float, float]:
         """The largest |a| and |alpha| on the way; on a line they peak together."""
-        peak = self.sigma.peak_accel()
+        peak = self.sigma.peak_accel
         return abs(self.step[0]) * peak, abs(self.step[1]) * peak
 
 
 _REST = _AxesMotion(standstill(0.0), standstill(0.0))
-
-
-def _ramp_or_wait(state: tuple[float, float], target: float, limits: AxisLimits) -> Ramp:
-    """The axis's ramp, or, when its share of the wheels' budget is nothing for now, holding still (it is not
-    accelerating then: what it leaves the other axis is at least its own present acceleration)."""
-    if max(limits.accel, limits.decel) <= 0.0 and state[1] == 0.0:
-        return standstill(state[0])
-    return plan_ramp(*state, target, limits)
 
 
 def _toward_zero(start: float, end: float) -> float:
@@ -291,6 +283,7 @@ class Shaper:
         self._stop: StopKind | None = None
         self._bound: Bound | None = None  # the envelope limit that cut the request, if any
         self._held_by: Bound | None = None  # the limit that keeps the plan in force from heading to the target
+        self._retry = False  # plan again next cycle: no candidate passed, or the plan in force is provisional
 
     @property
     def stopping(self) -> StopKind | None:
@@ -304,7 +297,7 @@ class Shaper:
         self._stop = kind
         self._target = (0.0, 0.0)
         if kind is StopKind.IMMEDIATE:
-            self._motion, self._t, self._aim, self._held_by = _REST, 0.0, (0.0, 0.0), None
+            self._motion, self._t, self._aim, self._held_by, self._retry = _REST, 0.0, (0.0, 0.0), None, False
         else:
             self._replan()
 
@@ -322,7 +315,7 @@ class Shaper:
             target = (clamped.v_mps, clamped.omega_radps)
             changed, self._target = target != self._target, target
         # a new target, a plan held back (or provisional) last cycle, or the end of a detour: plan again
-        if changed or self._held_by is not None or (self._aim != self._target and self._ended()):
+        if changed or self._retry or (self._aim != self._target and self._ended()):
             self._replan()
         self._t += dt_s
         return self._output(rejected)
@@ -363,7 +356,8 @@ class Shaper:
         if detour is not None:
             self._accept(detour, broken)
         else:
-            self._held_by = broken  # the plan in force goes on (it keeps every limit); try again next cycle
+            # the plan in force goes on (it keeps every limit); try again next cycle
+            self._held_by, self._retry = broken, True
 
     def _part_way(
         self, start: tuple[tuple[float, float], tuple[float, float]], target: tuple[float, float], share: float,
@@ -373,7 +367,7 @@ class Shaper:
         return None if self._way_breaks(motion) else motion
 
     def _accept(self, motion: _AxesMotion | _LineMotion, held_by: Bound | None) -> None:
-        self._motion, self._t, self._aim = motion, 0.0, motion.end
+        self._motion, self._t, self._aim, self._retry = motion, 0.0, motion.end, motion.provisional
         if motion.provisional:
             self._held_by = Bound.WHEEL_ACCEL
         else:
@@ -410,22 +404,26 @@ class Shaper:
         (v_low, v_high), (w_low, w_high) = motion.box()
         fastest, sharpest = max(-v_low, v_high), max(-w_low, w_high)
         peak_a, peak_alpha = motion.peak_accels()
-        if (
+        accels_inside = peak_a + peak_alpha * half_track <= rim_accel
+        rates_inside = (
             v_high <= speed
             and -v_low <= reverse
             and sharpest <= turn
             and fastest + sharpest * half_track <= rim_speed
             and fastest * sharpest <= sideways
-            and peak_a + peak_alpha * half_track <= rim_accel
-        ):
+        )
+        if rates_inside and accels_inside:
             return None
         joints = motion.joints()
         for t0, t1 in itertools.pairwise(joints):
             piece = t1 - t0
             v, a, jerk, w, alpha, turn_jerk = motion.sample(t0)
-            a_end, alpha_end = a + jerk * piece, alpha + turn_jerk * piece
-            if max(abs(a) + abs(alpha) * half_track, abs(a_end) + abs(alpha_end) * half_track) > rim_accel:
-                return Bound.WHEEL_ACCEL
+            if not accels_inside:
+                a_end, alpha_end = a + jerk * piece, alpha + turn_jerk * piece
+                if max(abs(a) + abs(alpha) * half_track, abs(a_end) + abs(alpha_end) * half_track) > rim_accel:
+                    return Bound.WHEEL_ACCEL
+            if rates_inside:
+                continue
             times = [0.0, piece]
             for weight_v, weight_w in ((1.0, 0.0), (0.0, 1.0), (1.0, -half_track), (1.0, half_track)):
                 curve = weight_v * jerk + weight_w * turn_jerk
@@ -491,8 +489,12 @@ class Shaper:
         speed: AxisLimits, turn: AxisLimits,
     ) -> _AxesMotion:
         speed, turn, provisional = self._share_wheel_accel(speed_state, turn_state, target, speed, turn)
-        speed_ramp = _ramp_or_wait(speed_state, target[0], speed)
-        turn_ramp = _ramp_or_wait(turn_state, target[1], turn)
+        # An axis whose share of the wheels' budget is nothing for now holds still (it is not accelerating then:
+        # what it leaves the other axis is at least its own present acceleration).
+        speed_ramp = (plan_ramp(*speed_state, target[0], speed) if speed.accel > 0.0 or speed_state[1] != 0.0
+                      else standstill(speed_state[0]))
+        turn_ramp = (plan_ramp(*turn_state, target[1], turn) if turn.accel > 0.0 or turn_state[1] != 0.0
+                     else standstill(turn_state[0]))
         if self.mode is Mode.SYNCED:
             duration = max(speed_ramp.duration, turn_ramp.duration)
             speed_ramp = stretch_ramp(speed_ramp, speed, duration)
@@ -538,6 +540,24 @@ class Shaper:
 
     # -- output ---------------------------------------------------------------------------------------------------
 
+    def _edge(self, v: float, w: float, left: float, right: float) -> Bound | None:
+        """The envelope limit (v, omega) is on, if any (within the share that counts as binding)."""
+        limits = self.envelope.limits  # comparisons only: this runs every cycle
+        if v >= _AT_LIMIT * limits.speed_mps:
+            return Bound.SPEED
+        if -v >= _AT_LIMIT * limits.reverse_speed_mps:
+            return Bound.REVERSE_SPEED
+        turn = _AT_LIMIT * limits.turn_rate_radps
+        if w >= turn or -w >= turn:
+            return Bound.TURN_RATE
+        wheel = _AT_LIMIT * limits.wheel_rate_radps
+        if left >= wheel or -left >= wheel or right >= wheel or -right >= wheel:
+            return Bound.WHEEL_RATE
+        sideways, product = limits.sideways_accel_mps2, v * w
+        if sideways is not None and (product >= _AT_LIMIT**2 * sideways or -product >= _AT_LIMIT**2 * sideways):
+            return Bound.SIDEWAYS_ACCEL
+        return None
+
     def _output(self, rejected: bool) -> Shaped:
         v, a, j, w, alpha, turn_jerk = self._motion.sample(self._t)
         limits = self.envelope.limits
@@ -554,9 +574,7 @@ class Shaper:
         # request; the jerk limit the ramps use in full.
         bound: Bound | None = None
         if self._stop is None:
-            edge_use, bound = self.envelope.usage(v, w)
-            if edge_use < _AT_LIMIT:
-                bound = self._held_by
+            bound = self._edge(v, w, left, right) or self._held_by
         if bound is None and max(accel_use, wheel_accel_use) >= _AT_LIMIT:
             bound = Bound.WHEEL_ACCEL if wheel_accel_use > accel_use else Bound.ACCEL
         if bound is None and self._stop is None:
@@ -582,5 +600,5 @@ class Shaper:
             rejected=rejected,
             stopping=self._stop,
             immediate_zero=self._stop is StopKind.IMMEDIATE,
-            settled=self._ended() and self._aim == self._target and self._held_by is None,
+            settled=self._t >= self._motion.duration and self._aim == self._target and not self._retry,
         )
