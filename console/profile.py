@@ -25,6 +25,7 @@ from console.errors import InputError
 from console.files import read_input
 from console.protocol import SEQ_MODULUS
 from console.templates import MAX_TEMPLATE_LINE
+from shaping.body import Body
 from shaping.envelope import Envelope, Limits
 from shaping.geometry import Geometry
 from shaping.units import WheelUnit, WheelUnits
@@ -90,6 +91,7 @@ class Profile:
     link: LinkConfig
     sim: SimConfig
     data: dict[str, Any] = field(compare=False, repr=False)
+    body: Body | None = None
 
     @property
     def envelope(self) -> Envelope:
@@ -106,7 +108,7 @@ RATE_HZ_RANGE = (10.0, 1000.0)
 TELEMETRY_RATE_HZ_RANGE = (1.0, 1000.0)
 DEFAULT_STOP_JERK_FACTOR = 4.0
 DEFAULT_SIM_RATE_FACTOR = 1.2
-SECTIONS = ("robot", "geometry", "limits", "units", "link", "sim")
+SECTIONS = ("robot", "geometry", "limits", "units", "link", "sim", "body")
 MAX_NAME = 80
 MAX_PROFILE_BYTES = 1 << 20   # a profile is a few kB; a megabyte is a mistake (or not a profile at all)
 WIRE_RATE_MAX = 2_000_000.0   # PROTOCOL.md section 10: wheel rates travel as +-2000000.000 firmware units
@@ -141,6 +143,13 @@ RANGES: dict[str, tuple[float, float]] = {
     "sim.noise_radps": (0.0, 1000.0),
     "sim.battery_v": (0.01, 999.99),       # PROTOCOL.md section 4: battery 0.00..999.99 V, 0.00 = not measured
     "sim.unit_scale": (0.001, 1000.0),
+    "body.mass_kg": (0.01, 100_000.0),
+    "body.cog_height_m": (0.001, 100.0),
+    "body.cog_ahead_m": (-100.0, 100.0),
+    "body.support_ahead_m": (0.0, 100.0),
+    "body.support_behind_m": (0.0, 100.0),
+    "body.drive_load_share": (0.01, 1.0),
+    "body.tyre_friction": (0.01, 3.0),      # common practice: rubber on dry concrete is about 0.8, ice far below 0.1
 }
 # a plain number format: [[fill]align][sign][z][#][0][width][grouping][.precision][type]
 PLAIN_SPEC = re.compile(r"(?:.?[<>=^])?[-+ ]?z?#?0?(?P<width>\d*)[,_]?(?:\.(?P<precision>\d+))?(?P<type>[a-zA-Z%]?)")
@@ -192,7 +201,7 @@ def _keys(cls: type) -> frozenset[str]:
 # what each table may hold, to tell a misspelt required key from a known key that is simply read later
 _KNOWN_KEYS: dict[str, frozenset[str]] = {
     "robot": frozenset({"name"}), "geometry": _keys(Geometry), "limits": _keys(Limits), "units": _keys(WheelUnits),
-    "link": _keys(LinkConfig), "link.template": _keys(TemplateConfig), "sim": _keys(SimConfig),
+    "link": _keys(LinkConfig), "link.template": _keys(TemplateConfig), "sim": _keys(SimConfig), "body": _keys(Body),
 }
 
 
@@ -298,7 +307,28 @@ def load_profile(path: str | Path) -> Profile:
     units = _units(_Table(file, "units", data.get("units", {})), limits)
     sim = _sim(_Table(file, "sim", data.get("sim", {})), limits)
     link = _link(_Table(file, "link", data.get("link", {})), sim, _top_command(units, limits))
-    return Profile(path=path, name=name, geometry=geometry, limits=limits, units=units, link=link, sim=sim, data=data)
+    body = _body(_Table(file, "body", data["body"])) if "body" in data else None
+    return Profile(path=path, name=name, geometry=geometry, limits=limits, units=units, link=link, sim=sim, data=data,
+                   body=body)
+
+
+def _body(table: _Table) -> Body:
+    """The optional [body]: what the static tip-over and traction limits are worked out from (shaping.body)."""
+    body = Body(
+        mass_kg=table.optional("mass_kg", "kg, for the record"),
+        cog_height_m=table.number("cog_height_m", "m, the centre of mass above the ground"),
+        cog_ahead_m=table.number("cog_ahead_m", "m, ahead of the drive axle (behind: negative)", 0.0),
+        support_ahead_m=table.number("support_ahead_m", "m, casters or skids ahead of the drive axle", 0.0),
+        support_behind_m=table.number("support_behind_m", "m, casters or skids behind the drive axle", 0.0),
+        drive_load_share=table.number("drive_load_share", "share of the weight on the drive wheels", 1.0),
+        tyre_friction=table.number("tyre_friction", "friction coefficient of the drive tyres on the floor"),
+    )
+    if not -body.support_behind_m <= body.cog_ahead_m <= body.support_ahead_m:
+        raise table.error("cog_ahead_m", body.cog_ahead_m,
+                          f"from -support_behind_m = {-body.support_behind_m:g} to support_ahead_m = "
+                          f"{body.support_ahead_m:g} m: a centre of mass outside its supports tips over at rest")
+    table.finish()
+    return body
 
 
 def _parse(path: Path) -> dict[str, Any]:

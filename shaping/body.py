@@ -20,7 +20,7 @@ class Body:
     (0 when there are none on that side: the drive wheels themselves are then the outermost support).
     """
 
-    mass_kg: float
+    mass_kg: float | None  # for the record; the static figures do not depend on it
     cog_height_m: float
     cog_ahead_m: float
     support_ahead_m: float

@@ -14,6 +14,7 @@ from rich.table import Table
 
 from console.files import STDOUT, atomic_output
 from console.profile import Profile, load_profile
+from shaping.body import tip_and_grip
 from shaping.ramp import AxisLimits, plan_ramp
 from shaping.shaper import StopKind, speed_limits
 
@@ -59,6 +60,61 @@ def envelope_figures(profile: Profile) -> dict[str, object]:
         "controlled_stop_distance_m": stop_distance,
         "fast_stop_time_s": fast_time,
         "fast_stop_distance_m": fast_distance,
+        **body_figures(profile),
+    }
+
+
+BODY_CAUTION = ("Tip-over and traction figures are static, on level ground: slopes, payload shifts, bumps and the "
+                "robot's own dynamics lower them. For anything people ride on or work beside, follow local codes "
+                "and licensed practice.")
+
+
+def _max_sideways_mps2(profile: Profile) -> float:
+    """The largest |v x omega| the envelope allows without a sideways limit: v omega under v <= speed, omega <= turn
+    rate and v + omega W / 2 <= rim speed (the outer wheel). On the wheel's line the product peaks at v = rim / 2."""
+    limits, geometry = profile.limits, profile.geometry
+    rim = limits.wheel_rate_radps * geometry.wheel_radius_m
+    fastest = min(limits.speed_mps, rim)
+
+    def product(v: float) -> float:
+        return v * min(limits.turn_rate_radps, 2.0 * (rim - v) / geometry.track_width_m)
+
+    corner = rim - limits.turn_rate_radps * geometry.track_width_m / 2.0   # where the two turn bounds meet
+    candidates = [fastest, min(max(corner, 0.0), fastest), min(rim / 2.0, fastest)]
+    return max(product(v) for v in candidates)
+
+
+def body_figures(profile: Profile) -> dict[str, object]:
+    """Static tip-over and traction limits of the [body], and a warning for each limit of the profile beyond them."""
+    if profile.body is None:
+        return {}
+    grip = tip_and_grip(profile.body, profile.geometry.track_width_m)
+    limits = profile.limits
+    # speeding up or braking tips the robot over its front or its back depending on the direction of travel, and
+    # both directions are driven: each longitudinal limit has to stay below the lower of the two
+    longitudinal = min(grip.forward_tip_mps2, grip.backward_tip_mps2)
+    sideways = limits.sideways_accel_mps2
+    checks = [
+        ("limits.accel_mps2", limits.accel_mps2, longitudinal, "tip-over (front or back)"),
+        ("limits.decel_mps2", limits.decel_mps2, longitudinal, "tip-over (front or back)"),
+        ("limits.stop_decel_mps2", limits.stop_decel_mps2, longitudinal, "tip-over (front or back)"),
+        ("limits.sideways_accel_mps2", sideways if sideways is not None else _max_sideways_mps2(profile),
+         grip.sideways_tip_mps2, "sideways tip-over"),
+    ]
+    checks += [(key, value, grip.traction_mps2, "traction") for key, value, _, _ in checks]
+    warnings = []
+    for key, value, bound, what in checks:
+        if value > bound:
+            given = f"{value:.3g} m/s^2" if key != "limits.sideways_accel_mps2" or sideways is not None else (
+                f"not set (the envelope allows {value:.3g} m/s^2)")
+            excess = f"{100.0 * (value / bound - 1.0):.0f} % over" if bound > 0.0 else "no margin at all"
+            warnings.append(f"{key} = {given} exceeds the static {what} limit {bound:.3g} m/s^2: {excess}")
+    return {
+        "sideways_tip_mps2": grip.sideways_tip_mps2,
+        "forward_tip_mps2": grip.forward_tip_mps2,
+        "backward_tip_mps2": grip.backward_tip_mps2,
+        "traction_mps2": grip.traction_mps2,
+        "body_warnings": warnings,
     }
 
 
@@ -74,6 +130,10 @@ _ROWS = (
     ("controlled stop from top speed: distance", "controlled_stop_distance_m", "m"),
     ("fast stop from top speed: time", "fast_stop_time_s", "s"),
     ("fast stop from top speed: distance", "fast_stop_distance_m", "m"),
+    ("static tip-over, sideways", "sideways_tip_mps2", "m/s^2"),
+    ("static tip-over, over the front", "forward_tip_mps2", "m/s^2"),
+    ("static tip-over, over the back", "backward_tip_mps2", "m/s^2"),
+    ("traction of the drive tyres", "traction_mps2", "m/s^2"),
 )
 
 
@@ -84,10 +144,16 @@ def _show(figures: dict[str, object]) -> None:
     table.add_column("value", justify="right")
     table.add_column("unit")
     for label, key, unit in _ROWS:
+        if key not in figures:
+            continue    # the body's figures, when the profile has no [body]
         value = figures[key]
         table.add_row(label, "none: cannot turn at top speed" if value is None else f"{value:.3f}", unit)
     console = Console()
     console.print(table)
+    if "body_warnings" in figures:
+        for warning in figures["body_warnings"]:  # type: ignore[attr-defined]
+            console.print(f"warning: {warning}", markup=False, highlight=False, soft_wrap=True)  # one line each
+        console.print(BODY_CAUTION)
     console.print("profile OK. Stopping figures are for the shaped commands on good ground; a software stop is not a "
                   "safety function: keep a hardware emergency stop within reach.")
 
