@@ -79,6 +79,18 @@ class SimConfig:
     dead_left: bool = False
     dead_right: bool = False
     unit_scale: float = 1.0
+    # "closed": the wheels follow their commands through a lag (a speed loop assumed in the firmware); "open": the
+    # command is a duty driving a DC motor (console/sim/motor.py); "pi": the firmware's PI loop on that motor
+    wheel_loop: str = "closed"
+    motor_resistance_ohm: float = 2.0             # the motor seen at the wheel (constants through the gearbox)
+    motor_torque_constant_nm_per_a: float = 0.6
+    wheel_inertia_kgm2: float = 0.004
+    viscous_friction_nms: float = 0.002
+    coulomb_friction_nm: float = 0.05
+    pi_kp: float = 0.0                            # duty per rad/s of error
+    pi_ki: float = 0.0                            # duty per rad of integrated error
+    ff_ks: float = 0.0                            # duty to break static friction
+    ff_kv: float = 0.0                            # duty per rad/s of reference
 
 
 @dataclass(frozen=True, slots=True)
@@ -143,6 +155,15 @@ RANGES: dict[str, tuple[float, float]] = {
     "sim.noise_radps": (0.0, 1000.0),
     "sim.battery_v": (0.01, 999.99),       # PROTOCOL.md section 4: battery 0.00..999.99 V, 0.00 = not measured
     "sim.unit_scale": (0.001, 1000.0),
+    "sim.motor_resistance_ohm": (0.001, 1000.0),
+    "sim.motor_torque_constant_nm_per_a": (0.0001, 1000.0),
+    "sim.wheel_inertia_kgm2": (1e-7, 1000.0),
+    "sim.viscous_friction_nms": (0.0, 1000.0),
+    "sim.coulomb_friction_nm": (0.0, 10_000.0),
+    "sim.pi_kp": (0.0, 1000.0),
+    "sim.pi_ki": (0.0, 100_000.0),
+    "sim.ff_ks": (0.0, 1.0),
+    "sim.ff_kv": (0.0, 1000.0),
     "body.mass_kg": (0.01, 100_000.0),
     "body.cog_height_m": (0.001, 100.0),
     "body.cog_ahead_m": (-100.0, 100.0),
@@ -306,6 +327,9 @@ def load_profile(path: str | Path) -> Profile:
     limits = _limits(_required_table(file, data, "limits"), geometry)
     units = _units(_Table(file, "units", data.get("units", {})), limits)
     sim = _sim(_Table(file, "sim", data.get("sim", {})), limits)
+    if sim.wheel_loop == "open" and units.unit is not WheelUnit.DUTY:
+        raise ProfileError(file, "sim.wheel_loop", sim.wheel_loop, f'"closed" or "pi" with units.unit = '
+                           f'"{units.unit.value}": open loop the firmware takes a duty (units.unit = "duty")')
     link = _link(_Table(file, "link", data.get("link", {})), sim, _top_command(units, limits))
     body = _body(_Table(file, "body", data["body"])) if "body" in data else None
     return Profile(path=path, name=name, geometry=geometry, limits=limits, units=units, link=link, sim=sim, data=data,
@@ -510,9 +534,20 @@ def _sim(table: _Table, limits: Limits) -> SimConfig:
         dead_left=table.boolean("dead_left", False),
         dead_right=table.boolean("dead_right", False),
         unit_scale=table.number("unit_scale", "factor the firmware misreads commands by", SIM_DEFAULTS.unit_scale),
+        wheel_loop=table.text("wheel_loop", SIM_DEFAULTS.wheel_loop, choices=WHEEL_LOOPS),
+        **{key: table.number(key, unit, getattr(SIM_DEFAULTS, key)) for key, unit in _MOTOR_KEYS},
     )
     table.finish()
     return sim
+
+
+WHEEL_LOOPS = ("closed", "open", "pi")
+_MOTOR_KEYS = (
+    ("motor_resistance_ohm", "ohm, armature"), ("motor_torque_constant_nm_per_a", "N m/A at the wheel"),
+    ("wheel_inertia_kgm2", "kg m^2 at the wheel"), ("viscous_friction_nms", "N m s"),
+    ("coulomb_friction_nm", "N m"), ("pi_kp", "duty per rad/s"), ("pi_ki", "duty per rad"),
+    ("ff_ks", "duty"), ("ff_kv", "duty per rad/s"),
+)
 
 
 def link_url_problem(url: str) -> str | None:

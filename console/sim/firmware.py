@@ -87,7 +87,7 @@ class SimRobot:
         self.transport: Transport = transport
         self.profile = profile
         sim = profile.sim
-        self.plant = Plant(profile.geometry, sim)
+        self.plant = Plant(profile.geometry, sim, profile.units.full_duty_radps)
         units = profile.units    # the unit only: polarity, swap and trim are the console's corrections
         self._units = WheelUnits(units.unit, units.ticks_per_rev, units.gear_ratio, units.full_duty_radps)
         self._codec = _robot_codec(profile)

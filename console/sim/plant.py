@@ -26,6 +26,7 @@ from typing import TYPE_CHECKING
 
 import numpy as np
 
+from console.sim.motor import DcMotor
 from shaping.geometry import Geometry
 
 if TYPE_CHECKING:
@@ -74,17 +75,13 @@ def arc_step(
     return x_m + chord * math.cos(mid), y_m + chord * math.sin(mid), heading_rad + 2.0 * half
 
 
-class _Motor:
-    """One motor and wheel: dead-time delay line, deadband, saturation, torque-limited first-order lag."""
+class _DelayLine:
+    """The drive's dead time: a command takes effect `dead` seconds after it arrives."""
 
-    __slots__ = ("tau", "dead", "deadband", "accel", "max_rate", "rate", "angle", "_queue", "_active", "_last_in")
+    __slots__ = ("dead", "rate", "angle", "_queue", "_active", "_last_in")
 
-    def __init__(self, tau_s: float, dead_s: float, deadband: float, accel: float, max_rate: float) -> None:
-        self.tau = tau_s
+    def __init__(self, dead_s: float) -> None:
         self.dead = dead_s
-        self.deadband = deadband
-        self.accel = accel
-        self.max_rate = max_rate
         self.rate = 0.0     # actual wheel rate, rad/s
         self.angle = 0.0    # wheel angle travelled, rad
         self._queue: deque[tuple[float, float]] = deque()   # (time it takes effect, command)
@@ -98,15 +95,32 @@ class _Motor:
         self._active = 0.0
         self._last_in = 0.0
 
-    def _target(self, t: float, command: float) -> float:
-        """Take in `command` arriving at t, release what the delay line holds for t; return the motor's target."""
+    def _delayed(self, t: float, command: float) -> float:
+        """Take in `command` arriving at t, release what the delay line holds for t; return the command in force."""
         if command != self._last_in:
             self._queue.append((t + self.dead, command))
             self._last_in = command
         queue = self._queue
         while queue and queue[0][0] <= t + _TIME_EPS_S:
             self._active = queue.popleft()[1]
-        u = self._active
+        return self._active
+
+
+class _Motor(_DelayLine):
+    """One motor and wheel with its own speed loop: deadband, saturation, torque-limited first-order lag."""
+
+    __slots__ = ("tau", "deadband", "accel", "max_rate")
+
+    def __init__(self, tau_s: float, dead_s: float, deadband: float, accel: float, max_rate: float) -> None:
+        super().__init__(dead_s)
+        self.tau = tau_s
+        self.deadband = deadband
+        self.accel = accel
+        self.max_rate = max_rate
+
+    def _target(self, t: float, command: float) -> float:
+        """The motor's target rate at t: the delayed command through the deadband and the saturation."""
+        u = self._delayed(t, command)
         if -self.deadband < u < self.deadband:
             return 0.0
         if u > self.max_rate:
@@ -178,23 +192,69 @@ class _Motor:
         return means
 
 
+class _DrivenWheel(_DelayLine):
+    """A DC motor driven by a duty fraction (console.sim.motor): open loop, or under the firmware's PI speed loop.
+
+    Open loop the channel command (wheel rad/s from the firmware's unit) is a duty of `full_duty_radps`; with the PI
+    it is the reference rate, and the duty is ff_ks sign(ref) + ff_kv ref + kp e + ki integral(e), e = ref - rate,
+    computed every sub-step and held within +-1 (the integral stops while the duty is held: anti-windup).
+    """
+
+    __slots__ = ("motor", "per_radps", "pi", "integral")
+
+    def __init__(self, motor: DcMotor, dead_s: float, full_duty_radps: float,
+                 pi: tuple[float, float, float, float] | None) -> None:
+        super().__init__(dead_s)
+        self.motor = motor
+        self.per_radps = 1.0 / full_duty_radps if full_duty_radps > 0.0 else 0.0
+        self.pi = pi    # (kp, ki, ff_ks, ff_kv) in duty per rad/s, per rad, duty, per rad/s
+        self.integral = 0.0
+
+    def halt(self) -> None:
+        super().halt()
+        self.integral = 0.0
+
+    def run(self, t: float, h: float, n: int, command: float) -> list[float]:
+        """n sub-steps of h from time t, `command` arriving at t: the mean wheel rate over each sub-step."""
+        means = []
+        for k in range(n):
+            reference = self._delayed(t + k * h, command)
+            if self.pi is None:
+                duty = reference * self.per_radps
+            else:
+                kp, ki, ff_ks, ff_kv = self.pi
+                error = reference - self.rate
+                feed = (math.copysign(ff_ks, reference) if reference != 0.0 else 0.0) + ff_kv * reference
+                duty = feed + kp * error + self.integral
+                if -1.0 < duty < 1.0:
+                    self.integral += ki * error * h
+            duty = max(-1.0, min(1.0, duty))
+            self.rate, travelled = self.motor.step(self.rate, duty, h)
+            self.angle += travelled
+            means.append(travelled / h)
+        return means
+
+
 class Plant:
     """Both motors and wheels, the encoders and the vehicle pose; `step` advances it by dt with channel commands."""
 
-    def __init__(self, geometry: Geometry, sim: SimConfig) -> None:
+    def __init__(self, geometry: Geometry, sim: SimConfig, full_duty_radps: float = 0.0) -> None:
         self.sim = sim
         self.left_radius_m = geometry.wheel_radius_m
         self.right_radius_m = geometry.wheel_radius_m * sim.wheel_radius_ratio
         self.track_m = geometry.track_width_m * sim.track_width_scale
-        motor = (
-            sim.motor_time_constant_s,
-            sim.motor_dead_time_s,
-            sim.deadband_radps,
-            sim.wheel_accel_radps2,
-            sim.max_wheel_rate_radps,
-        )
-        self._left = _Motor(*motor)
-        self._right = _Motor(*motor)
+        self._left: _Motor | _DrivenWheel
+        self._right: _Motor | _DrivenWheel
+        if sim.wheel_loop == "closed":
+            motor = (sim.motor_time_constant_s, sim.motor_dead_time_s, sim.deadband_radps, sim.wheel_accel_radps2,
+                     sim.max_wheel_rate_radps)
+            self._left, self._right = _Motor(*motor), _Motor(*motor)
+        else:
+            dc = DcMotor(sim.motor_resistance_ohm, sim.motor_torque_constant_nm_per_a, sim.wheel_inertia_kgm2,
+                         sim.viscous_friction_nms, sim.coulomb_friction_nm, sim.battery_v)
+            pi = (sim.pi_kp, sim.pi_ki, sim.ff_ks, sim.ff_kv) if sim.wheel_loop == "pi" else None
+            self._left = _DrivenWheel(dc, sim.motor_dead_time_s, full_duty_radps, pi)
+            self._right = _DrivenWheel(dc, sim.motor_dead_time_s, full_duty_radps, pi)
         # Wiring between the firmware's command channels and the motors (faults of the polarity check).
         self._swap = sim.swap_motors
         self._left_gain = 0.0 if sim.dead_left else (-1.0 if sim.invert_left_motor else 1.0) * sim.unit_scale
