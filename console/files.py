@@ -21,6 +21,8 @@ naming the file and the reason, never an OSError traceback.
 
 from __future__ import annotations
 
+import csv
+import io
 import os
 import re
 import stat
@@ -236,3 +238,27 @@ def read_input(path: str | Path, what: str, *, max_bytes: int | None = None) -> 
         raise InputError(file, "file", file, f"cannot be read ({reason(error)})") from None
     finally:
         os.close(fd)
+
+
+def read_csv_rows(path: str | Path, what: str, header: tuple[str, ...]) -> Iterator[tuple[str, list[str]]]:
+    """The rows of a UTF-8 CSV input under exactly `header`, each with where it is ("FILE, line N") for the one-line
+    error; blank lines are skipped, and a row of the wrong length, bad CSV or a wrong header is an InputError."""
+    file = str(path)
+    try:
+        text = read_input(path, what).decode("utf-8-sig")  # a spreadsheet may lead with a BOM
+    except UnicodeDecodeError:
+        raise InputError(file, "file", file, f"not UTF-8 text; give {what}, a UTF-8 CSV file") from None
+    reader = csv.reader(io.StringIO(text, newline=""))
+    try:
+        first = next(reader, None)
+        if first is None or [name.strip() for name in first] != list(header):
+            raise InputError(f"{file}, line 1", "header", ",".join(first or [])[:80], "exactly " + ",".join(header))
+        for row in reader:
+            if not row or (len(row) == 1 and not row[0].strip()):
+                continue
+            where = f"{file}, line {reader.line_num}"
+            if len(row) != len(header):
+                raise InputError(where, "row", ",".join(row)[:80], f"{len(header)} fields: " + ",".join(header))
+            yield where, row
+    except csv.Error as error:
+        raise InputError(f"{file}, line {reader.line_num}", "row", "", f"valid CSV ({error})") from None

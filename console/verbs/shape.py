@@ -8,15 +8,13 @@ renamed into place only when complete, so a bad row never leaves a half-written 
 from __future__ import annotations
 
 import argparse
-import csv
-import io
 import math
 from dataclasses import dataclass
 from pathlib import Path
 from typing import TextIO
 
 from console.errors import DiffdeckError, InputError
-from console.files import PLAIN_NUMBER, STDOUT, atomic_output, check_output, read_input
+from console.files import PLAIN_NUMBER, STDOUT, atomic_output, check_output, read_csv_rows
 from console.profile import RATE_HZ_RANGE, Profile, load_profile
 from shaping.envelope import Bound
 from shaping.ramp import plan_ramp
@@ -64,41 +62,23 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 def read_requests(path: str | Path) -> Requests:
     """Read and check a request trace; InputError names the file, line, field, value and what is allowed."""
     file = str(path)
-    try:
-        text = read_input(path, "a request trace (CSV)").decode("utf-8-sig")  # a spreadsheet may lead with a BOM
-    except UnicodeDecodeError:
-        raise InputError(file, "file", file, "not UTF-8 text; a request trace is a UTF-8 CSV file") from None
     times: list[float] = []
     speeds: list[float] = []
     turns: list[float] = []
-    reader = csv.reader(io.StringIO(text, newline=""))
-    try:
-        header = next(reader, None)
-        if header is None or [name.strip() for name in header] != list(INPUT_HEADER):
-            raise InputError(f"{file}, line 1", "header", ",".join(header or [])[:80], "exactly " + ",".join(
-                INPUT_HEADER))
-        previous = -math.inf
-        for row in reader:
-            if not row or (len(row) == 1 and not row[0].strip()):
-                continue
-            where = f"{file}, line {reader.line_num}"
-            if len(row) != len(INPUT_HEADER):
-                raise InputError(where, "row", ",".join(row)[:80], f"{len(INPUT_HEADER)} fields: "
-                                                                   + ",".join(INPUT_HEADER))
-            t, v, omega = (_number(where, name, text) for name, text in zip(INPUT_HEADER, row))
-            if t < 0.0 or t <= previous:
-                allowed = "at least 0" if previous == -math.inf else f"greater than the previous row's {previous:g}"
-                raise InputError(where, "t_s", row[0], f"a time in s {allowed} (times must increase)")
-            if t > MAX_DURATION_S:
-                rows = t * DEFAULT_RATE_HZ
-                raise InputError(where, "t_s", row[0][:40], f"at most {MAX_DURATION_S:g} s (24 h): shaping up to it "
-                                 f"at {DEFAULT_RATE_HZ:g} Hz would write {rows:.3g} rows, about {_size_text(rows)}")
-            previous = t
-            times.append(t)
-            speeds.append(v)
-            turns.append(omega)
-    except csv.Error as error:
-        raise InputError(f"{file}, line {reader.line_num}", "row", "", f"valid CSV ({error})") from None
+    previous = -math.inf
+    for where, row in read_csv_rows(path, "a request trace (CSV)", INPUT_HEADER):
+        t, v, omega = (_number(where, name, text) for name, text in zip(INPUT_HEADER, row))
+        if t < 0.0 or t <= previous:
+            allowed = "at least 0" if previous == -math.inf else f"greater than the previous row's {previous:g}"
+            raise InputError(where, "t_s", row[0], f"a time in s {allowed} (times must increase)")
+        if t > MAX_DURATION_S:
+            rows = t * DEFAULT_RATE_HZ
+            raise InputError(where, "t_s", row[0][:40], f"at most {MAX_DURATION_S:g} s (24 h): shaping up to it "
+                             f"at {DEFAULT_RATE_HZ:g} Hz would write {rows:.3g} rows, about {_size_text(rows)}")
+        previous = t
+        times.append(t)
+        speeds.append(v)
+        turns.append(omega)
     if not times:
         raise InputError(file, "rows", "(none)", "at least one request row after the header")
     return Requests(times, speeds, turns)
