@@ -23,6 +23,7 @@ from typing import Any
 
 from console.errors import InputError
 from console.files import read_input
+from console.inputs.mapper import InputConfig
 from console.protocol import SEQ_MODULUS
 from console.templates import MAX_TEMPLATE_LINE
 from shaping.body import Body
@@ -104,6 +105,7 @@ class Profile:
     sim: SimConfig
     data: dict[str, Any] = field(compare=False, repr=False)
     body: Body | None = None
+    input: InputConfig = InputConfig()
 
     @property
     def envelope(self) -> Envelope:
@@ -120,7 +122,7 @@ RATE_HZ_RANGE = (10.0, 1000.0)
 TELEMETRY_RATE_HZ_RANGE = (1.0, 1000.0)
 DEFAULT_STOP_JERK_FACTOR = 4.0
 DEFAULT_SIM_RATE_FACTOR = 1.2
-SECTIONS = ("robot", "geometry", "limits", "units", "link", "sim", "body")
+SECTIONS = ("robot", "geometry", "limits", "units", "link", "sim", "body", "input")
 MAX_NAME = 80
 MAX_PROFILE_BYTES = 1 << 20   # a profile is a few kB; a megabyte is a mistake (or not a profile at all)
 WIRE_RATE_MAX = 2_000_000.0   # PROTOCOL.md section 10: wheel rates travel as +-2000000.000 firmware units
@@ -170,7 +172,9 @@ RANGES: dict[str, tuple[float, float]] = {
     "body.support_ahead_m": (0.0, 100.0),
     "body.support_behind_m": (0.0, 100.0),
     "body.drive_load_share": (0.01, 1.0),
-    "body.tyre_friction": (0.01, 3.0),      # common practice: rubber on dry concrete is about 0.8, ice far below 0.1
+    "body.tyre_friction": (0.01, 3.0),
+    "input.deadzone": (0.0, 0.9),
+    "input.expo": (0.0, 1.0),      # common practice: rubber on dry concrete is about 0.8, ice far below 0.1
 }
 # a plain number format: [[fill]align][sign][z][#][0][width][grouping][.precision][type]
 PLAIN_SPEC = re.compile(r"(?:.?[<>=^])?[-+ ]?z?#?0?(?P<width>\d*)[,_]?(?:\.(?P<precision>\d+))?(?P<type>[a-zA-Z%]?)")
@@ -223,6 +227,7 @@ def _keys(cls: type) -> frozenset[str]:
 _KNOWN_KEYS: dict[str, frozenset[str]] = {
     "robot": frozenset({"name"}), "geometry": _keys(Geometry), "limits": _keys(Limits), "units": _keys(WheelUnits),
     "link": _keys(LinkConfig), "link.template": _keys(TemplateConfig), "sim": _keys(SimConfig), "body": _keys(Body),
+    "input": _keys(InputConfig),
 }
 
 
@@ -332,8 +337,58 @@ def load_profile(path: str | Path) -> Profile:
                            f'"{units.unit.value}": open loop the firmware takes a duty (units.unit = "duty")')
     link = _link(_Table(file, "link", data.get("link", {})), sim, _top_command(units, limits))
     body = _body(_Table(file, "body", data["body"])) if "body" in data else None
+    inputs = _input(_Table(file, "input", data.get("input", {})))
     return Profile(path=path, name=name, geometry=geometry, limits=limits, units=units, link=link, sim=sim, data=data,
-                   body=body)
+                   body=body, input=inputs)
+
+
+@functools.cache
+def _event_codes(prefixes: tuple[str, ...]) -> tuple[str, ...]:
+    """The kernel's event-code names with these prefixes (evdev's table of the Linux input ABI); without evdev (not
+    Linux) an empty tuple, and names are then only checked for their form."""
+    try:
+        from evdev import ecodes
+    except ImportError:
+        return ()
+    return tuple(sorted(name for name in ecodes.ecodes if name.startswith(prefixes)))
+
+
+def _input(table: _Table) -> InputConfig:
+    """The optional [input]: which stick axes and buttons drive, in the kernel's event-code names."""
+    defaults = InputConfig()
+
+    def code(key: str, prefixes: tuple[str, ...]) -> str:
+        name = table.text(key, getattr(defaults, key))
+        known = _event_codes(prefixes)
+        well_formed = name.startswith(prefixes) and re.fullmatch(r"[A-Z0-9_]+", name) is not None
+        if (known and name not in known) or not well_formed:
+            close = difflib.get_close_matches(name, known, n=1)
+            hint = f" (did you mean {close[0]}?)" if close else ""
+            raise table.error(key, name, f"an event code named {' or '.join(p + '...' for p in prefixes)} as the "
+                                         f"kernel names it{hint}")
+        return name
+
+    axes, buttons = ("ABS_",), ("BTN_", "KEY_")
+    config = InputConfig(
+        speed_axis=code("speed_axis", axes),
+        speed_axis_inverted=table.boolean("speed_axis_inverted", defaults.speed_axis_inverted),
+        turn_axis=code("turn_axis", axes),
+        turn_axis_inverted=table.boolean("turn_axis_inverted", defaults.turn_axis_inverted),
+        deadzone=table.number("deadzone", "fraction of half travel", defaults.deadzone),
+        expo=table.number("expo", "0 linear .. 1 cubic", defaults.expo),
+        hold_to_drive_button=code("hold_to_drive_button", buttons),
+        fast_stop_button=code("fast_stop_button", buttons),
+        slower_button=code("slower_button", buttons),
+        faster_button=code("faster_button", buttons),
+    )
+    if config.speed_axis == config.turn_axis:
+        raise table.error("turn_axis", config.turn_axis, "an axis other than speed_axis")
+    named = [config.hold_to_drive_button, config.fast_stop_button, config.slower_button, config.faster_button]
+    if len(set(named)) < len(named):
+        raise table.error("fast_stop_button", config.fast_stop_button, "four different buttons for hold-to-drive, "
+                                                                         "fast stop, slower and faster")
+    table.finish()
+    return config
 
 
 def _body(table: _Table) -> Body:

@@ -247,7 +247,7 @@ def test_unknown_section(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> 
     path, code, out, err = run_check(tmp_path, MINIMAL + "[motors]\nleft = 1\n", capsys)
     assert (code, out) == (2, "")
     assert err == f"diffdeck: {path}: [motors] = {{a table}}: unknown section (a profile has [robot], [geometry], " \
-                  "[limits], [units], [link], [sim], [body])\n"
+                  "[limits], [units], [link], [sim], [body], [input])\n"
 
 
 def test_misspelt_key_and_section_are_named_with_the_closest_known_one(tmp_path: Path,

@@ -1,0 +1,169 @@
+"""Hold-to-drive from an input device: the sans-I/O mapper's properties, and `diffdeck input map` end to end.
+
+The mapping is written out here from its definition (README, "[input]"): x = (value - (min + max) / 2) / ((max -
+min) / 2), clipped to [-1, 1], negated when inverted; 0 inside the deadzone, else (|x| - dz) / (1 - dz) with its
+sign; y = (1 - e) x + e x^3; v = y x setting x top speed (top reverse speed for y < 0), omega = y x setting x top
+turn rate. Event codes are the kernel's names (Linux input subsystem, include/uapi/linux/input-event-codes.h).
+"""
+
+from __future__ import annotations
+
+import csv
+import io
+from pathlib import Path
+
+import pytest
+from hypothesis import given
+from hypothesis import strategies as st
+
+from console.cli import main
+from console.inputs.mapper import Event, InputConfig, Mapper, Stop, stick_position
+
+WREN = Path(__file__).resolve().parents[2] / "profiles" / "wren.toml"
+CONFIG = InputConfig()
+TOP_V, TOP_REV, TOP_W = 1.0, 0.4, 2.5     # wren's envelope
+raw = st.integers(-32768, 32767)
+
+
+def by_hand(value: int, inverted: bool, deadzone: float = 0.08, expo: float = 0.3) -> float:
+    x = (value - (-32768 + 32767) / 2) / ((32767 + 32768) / 2)
+    x = max(-1.0, min(1.0, -x if inverted else x))
+    if abs(x) <= deadzone:
+        return 0.0
+    x = (abs(x) - deadzone) / (1 - deadzone) * (1 if x > 0 else -1)
+    return (1 - expo) * x + expo * x**3
+
+
+def mapper(setting: float = 0.3) -> Mapper:
+    return Mapper(CONFIG, TOP_V, TOP_REV, TOP_W, setting=setting)
+
+
+@given(raw, st.booleans())
+def test_stick_position_follows_its_definition(value: int, inverted: bool) -> None:
+    assert stick_position(value, -32768, 32767, inverted, 0.08, 0.3) == pytest.approx(by_hand(value, inverted))
+
+
+@given(raw, raw)
+def test_stick_position_is_monotone_and_within_one(a: int, b: int) -> None:
+    low, high = sorted((a, b))
+    assert -1.0 <= stick_position(low, -32768, 32767, False, 0.08, 0.3) <= stick_position(
+        high, -32768, 32767, False, 0.08, 0.3) <= 1.0
+
+
+@given(st.floats(0.0, 0.5), st.floats(0.0, 1.0))
+def test_the_response_starts_from_zero_at_the_deadzone_edge(deadzone: float, expo: float) -> None:
+    # continuity: just outside the deadzone the position is just above zero (no jump)
+    edge = -0.5 + 32767.5 * (deadzone + 1e-6)   # the raw value where x is a hair above the deadzone
+    assert 0.0 <= stick_position(edge, -32768, 32767, False, deadzone, expo) < 1e-3
+
+
+events = st.lists(st.one_of(
+    st.tuples(st.just("EV_ABS"), st.sampled_from(["ABS_Y", "ABS_RX", "ABS_X"]), raw),
+    st.tuples(st.just("EV_KEY"), st.sampled_from(["BTN_TL", "BTN_TR", "BTN_WEST", "BTN_NORTH", "BTN_SOUTH"]),
+              st.integers(0, 2)),
+), max_size=60)
+
+
+@given(events, st.floats(0.1, 1.0))
+def test_never_beyond_the_speed_setting_and_nothing_without_the_button(sequence: list[tuple[str, str, int]],
+                                                                       setting: float) -> None:
+    m, held = mapper(setting), False
+    for t, (kind, code, value) in enumerate(sequence):
+        request = m.feed(Event(t * 0.01, kind, code, value))
+        if kind == "EV_KEY" and code == "BTN_TL" and value in (0, 1):
+            held = value == 1
+        assert request.enabled is held
+        if not held:
+            assert (request.v_mps, request.omega_radps) == (0.0, 0.0)   # released: zero in the same event
+        assert -m.setting * TOP_REV - 1e-12 <= request.v_mps <= m.setting * TOP_V + 1e-12
+        assert abs(request.omega_radps) <= m.setting * TOP_W + 1e-12
+        assert 0.1 - 1e-9 <= m.setting <= 1.0 + 1e-9
+
+
+@given(st.integers(-32768, -8000), st.integers(-2600, 2600))   # the deadzone is 0.08 x 32767.5 = 2621 either side
+def test_an_off_centre_stick_gives_zero_until_it_has_been_centred(pushed: int, centre: int) -> None:
+    m = mapper()
+    m.feed(Event(0.0, "EV_ABS", "ABS_Y", pushed))              # stick held forward (up is negative on most pads)
+    request = m.feed(Event(0.1, "EV_KEY", "BTN_TL", 1))         # the button pressed with the stick off centre
+    assert request.enabled and request.v_mps == 0.0
+    assert m.feed(Event(0.2, "EV_ABS", "ABS_Y", pushed + 1)).v_mps == 0.0   # still no lurch
+    m.feed(Event(0.3, "EV_ABS", "ABS_Y", centre))              # through the centre (inside the deadzone)
+    request = m.feed(Event(0.4, "EV_ABS", "ABS_Y", pushed))
+    assert request.v_mps == pytest.approx(by_hand(pushed, True) * 0.3 * TOP_V)
+
+
+def test_full_stick_is_the_setting_and_the_buttons_step_it() -> None:
+    m = mapper()
+    m.feed(Event(0.0, "EV_KEY", "BTN_TL", 1))
+    assert m.feed(Event(0.1, "EV_ABS", "ABS_Y", -32768)).v_mps == pytest.approx(0.3 * TOP_V)   # full forward
+    assert m.feed(Event(0.2, "EV_KEY", "BTN_NORTH", 1)).v_mps == pytest.approx(0.4 * TOP_V)    # faster
+    m.feed(Event(0.3, "EV_KEY", "BTN_NORTH", 0))
+    assert m.feed(Event(0.4, "EV_ABS", "ABS_Y", 32767)).v_mps == pytest.approx(-0.4 * TOP_REV)
+    assert m.feed(Event(0.5, "EV_ABS", "ABS_RX", -32768)).omega_radps == pytest.approx(0.4 * TOP_W)  # left
+    stop = m.feed(Event(0.6, "EV_KEY", "BTN_TR", 1))
+    assert stop.stop is Stop.FAST and (stop.v_mps, stop.omega_radps) == (0.0, 0.0)
+    lost = m.lost(0.7)
+    assert lost.stop is Stop.LOST and not lost.enabled
+
+
+def run_map(tmp_path: Path, capsys: pytest.CaptureFixture[str], text: str, *options: str) -> tuple[int, str, str]:
+    events = tmp_path / "events.csv"
+    events.write_text(text)
+    code = main(["input", "map", str(WREN), str(events), *options])
+    captured = capsys.readouterr()
+    return code, captured.out, captured.err
+
+
+def test_input_map_end_to_end(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
+    # an invented session on a pad whose sticks report 0 .. 255 with a flat of 10
+    log = ("t_s,type,code,value\n"
+           "0.000,absinfo,ABS_Y,0:255:10\n0.000,absinfo,ABS_RX,0:255:10\n"
+           "0.000,EV_ABS,ABS_Y,128\n"
+           "0.100,EV_KEY,BTN_TL,1\n"
+           "0.200,EV_ABS,ABS_Y,0\n"
+           "0.300,EV_ABS,ABS_RX,64\n"
+           "0.400,EV_KEY,BTN_TL,0\n"
+           "0.500,EV_KEY,BTN_TR,1\n")
+    code, out, err = run_map(tmp_path, capsys, log, "--speed-setting", "0.5")
+    assert (code, err) == (0, "")
+    rows = list(csv.DictReader(io.StringIO(out)))
+    assert list(rows[0]) == ["t_s", "v_mps", "omega_radps", "enabled", "stop"]
+    assert len(rows) == 6      # one per event, none for the absinfo rows
+    # full forward on 0..255: x = -(0 - 127.5) / 127.5 = 1 -> y = 1 -> v = 0.5 x 1.0 m/s
+    assert float(rows[2]["v_mps"]) == pytest.approx(0.5)
+    # ABS_RX 64: x = -(64 - 127.5) / 127.5 = 0.498; the deadzone is the larger of 0.08 and 10 / 127.5 = 0.0784
+    x = (0.498039 - 0.08) / 0.92
+    assert float(rows[3]["omega_radps"]) == pytest.approx((0.7 * x + 0.3 * x**3) * 0.5 * 2.5, rel=1e-4)
+    assert (rows[4]["enabled"], rows[4]["v_mps"], rows[4]["omega_radps"]) == ("0", "0", "0")
+    assert rows[5]["stop"] == "fast"
+
+
+@pytest.mark.parametrize(("line", "field", "allowed"), [
+    ("0.1,EV_ABS,ABS_Y,1_0", "value", "a finite number"),
+    ("0.1,EV_ABS,ABS_Y,0.5", "value", "a whole number"),
+    ("0.1,EV_REL,REL_X,3", "type", "EV_ABS"),
+    ("0.1,absinfo,ABS_Y,10:0:0", "value", "min < max"),
+    ("0.1,EV_ABS,ABS_Y", "row", "4 fields"),
+    ("-0.5,EV_ABS,ABS_Y,1", "t_s", "at least the previous"),
+])
+def test_bad_rows_are_one_line_and_exit_2(tmp_path: Path, capsys: pytest.CaptureFixture[str], line: str,
+                                          field: str, allowed: str) -> None:
+    code, out, err = run_map(tmp_path, capsys, "t_s,type,code,value\n0,EV_ABS,ABS_Y,0\n" + line + "\n")
+    assert (code, out) == (2, "")
+    assert err.count("\n") == 1 and "line 3" in err and field in err and allowed in err
+
+
+@pytest.mark.parametrize(("section", "key", "allowed"), [
+    ('speed_axis = "ABS_YY"', "input.speed_axis", "did you mean ABS_Y"),
+    ('hold_to_drive_button = "ABS_X"', "input.hold_to_drive_button", "BTN_"),
+    ("deadzone = 0.95", "input.deadzone", "from 0 to 0.9"),
+    ('turn_axis = "ABS_Y"', "input.turn_axis", "other than speed_axis"),
+    ("expoo = 0.2", "input.expoo", "did you mean expo?"),
+])
+def test_a_bad_input_section_is_a_profile_error(tmp_path: Path, capsys: pytest.CaptureFixture[str], section: str,
+                                                key: str, allowed: str) -> None:
+    profile = tmp_path / "robot.toml"
+    profile.write_text(WREN.read_text() + "\n[input]\n" + section + "\n")
+    assert main(["profile", "check", str(profile)]) == 2
+    err = capsys.readouterr().err
+    assert err.count("\n") == 1 and key in err and allowed in err
