@@ -1,19 +1,24 @@
-"""`diffdeck input map PROFILE EVENTS.csv`: what a recorded input-device session asks of the robot, offline.
+"""`diffdeck input`: input devices for hold-to-drive (Linux input subsystem).
 
-Like `shape` for the keyboard's requests: before a gamepad drives anything, a person can see what its sticks and
-buttons become under the profile's [input] section (console/inputs/mapper.py): one output row per input event, the
-request before shaping, whether the hold-to-drive button is held, and any stop it asks for.
+- `input list`: the devices this user can read, with what they can drive;
+- `input watch [PATH] [--profile PROFILE]`: live raw events and what they ask for, to set up a profile's [input];
+- `input map PROFILE EVENTS.csv`: what a recorded session asks of the robot, offline. Like `shape` for the keyboard's
+  requests: before a gamepad drives anything, a person can see what its sticks and buttons become under the
+  profile's [input] section (console/inputs/mapper.py): one output row per input event, the request before
+  shaping, whether the hold-to-drive button is held, and any stop it asks for.
 """
 
 from __future__ import annotations
 
 import argparse
 import math
+import os
 from pathlib import Path
 
 from console.errors import InputError
 from console.files import PLAIN_NUMBER, STDOUT, atomic_output, plain_number, read_csv_rows
-from console.inputs.mapper import SPEED_SETTING_DEFAULT, SPEED_SETTING_RANGE, Event, Mapper
+from console.inputs.device import describe, list_devices, open_source, read_events
+from console.inputs.mapper import SPEED_SETTING_DEFAULT, SPEED_SETTING_RANGE, Event, InputConfig, Mapper
 from console.profile import Profile, load_profile
 
 NAME = "input"
@@ -27,6 +32,13 @@ EVENT_TYPES = ("EV_ABS", "EV_KEY", "EV_SYN", "EV_MSC")   # what a pad or a keybo
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
     actions = parser.add_subparsers(dest="action", metavar="ACTION", required=True)
+    actions.add_parser("list", help="the input devices this user can read", description="List the input devices "
+                       "this user can read, with their path and what they can drive.")
+    watch = actions.add_parser("watch", help="show live events and what they ask for",
+                               description="Show a device's live events and what they ask for (Ctrl-C ends).")
+    watch.add_argument("path", metavar="PATH", nargs="?",
+                       help="/dev/input/eventN, or a FIFO of input_event records (default: the first gamepad)")
+    watch.add_argument("--profile", metavar="PROFILE", help="map with this profile's [input] and envelope")
     preview = actions.add_parser("map", help="map recorded input events to requests (offline)",
                                  description="Map recorded input events to requests, offline.")
     preview.add_argument("profile", metavar="PROFILE", help="robot profile (TOML); its [input] section maps")
@@ -75,7 +87,58 @@ def map_events(profile: Profile, path: str | Path, setting: float) -> list[str]:
     return lines
 
 
+def _list() -> int:
+    devices = list_devices()
+    if not devices:
+        print("no input devices readable here (none under /dev/input, or this user may not read them: the input "
+              "group usually may)")
+        return 0
+    for device in devices:
+        axes = ", ".join(f"{code} {low}..{high}" for code, (low, high, _) in device.axes.items()) or "no axes"
+        print(f"{device.path}  {device.kind:8s}  {device.name}  ({axes}; {len(device.buttons)} buttons/keys)")
+    return 0
+
+
+def _watch(args: argparse.Namespace) -> int:
+    path = args.path
+    if path is None:
+        pads = [device for device in list_devices() if device.kind == "gamepad"]
+        if not pads:
+            raise InputError("input watch", "PATH", "(none given)", "a device path: no gamepad found (see "
+                                                                    "'diffdeck input list')")
+        path = pads[0].path
+    fd = open_source(path)
+    if args.profile is None:
+        mapper = Mapper(InputConfig(), 1.0, 1.0, 1.0, setting=1.0)   # positions as fractions of full stick
+        units = ("of full stick", "of full stick")
+    else:
+        profile = load_profile(args.profile)
+        envelope = profile.envelope
+        mapper = Mapper(profile.input, envelope.top_speed_mps, envelope.top_reverse_speed_mps,
+                        envelope.top_turn_rate_radps)
+        units = ("m/s", "rad/s")
+    try:
+        if path.startswith("/dev/"):
+            for code, (low, high, flat) in describe(path).axes.items():
+                mapper.set_range(code, low, high, flat)
+        print(f"watching {path}; Ctrl-C ends", flush=True)
+        for event in read_events(fd):
+            request = mapper.feed(event)
+            stop = f"  stop {request.stop.value}" if request.stop else ""
+            print(f"{event.t_s:14.6f}  {event.type:6s} {event.code:14s} {event.value:7d}  ->  speed "
+                  f"{request.v_mps:+.3f} {units[0]}, turn {request.omega_radps:+.3f} {units[1]}, "
+                  f"{'held' if request.enabled else 'released'}{stop}", flush=True)
+        print(f"{path}: no more events (the device went away, or the FIFO was closed)")
+    finally:
+        os.close(fd)
+    return 0
+
+
 def run(args: argparse.Namespace) -> int:
+    if args.action == "list":
+        return _list()
+    if args.action == "watch":
+        return _watch(args)
     low, high = SPEED_SETTING_RANGE
     if not (math.isfinite(args.speed_setting) and low <= args.speed_setting <= high):
         raise InputError("command line", "--speed-setting", args.speed_setting, f"a fraction from {low:g} to {high:g}")

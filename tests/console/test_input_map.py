@@ -10,6 +10,9 @@ from __future__ import annotations
 
 import csv
 import io
+import os
+import struct
+import threading
 from pathlib import Path
 
 import pytest
@@ -17,6 +20,7 @@ from hypothesis import given
 from hypothesis import strategies as st
 
 from console.cli import main
+from console.inputs.device import read_events
 from console.inputs.mapper import Event, InputConfig, Mapper, Stop, stick_position
 
 WREN = Path(__file__).resolve().parents[2] / "profiles" / "wren.toml"
@@ -167,3 +171,60 @@ def test_a_bad_input_section_is_a_profile_error(tmp_path: Path, capsys: pytest.C
     assert main(["profile", "check", str(profile)]) == 2
     err = capsys.readouterr().err
     assert err.count("\n") == 1 and key in err and allowed in err
+
+
+# --- the device shell: a pipe or FIFO carrying the kernel's struct input_event records -------------------------------
+# struct input_event { struct timeval time; __u16 type; __u16 code; __s32 value; } (include/uapi/linux/input.h);
+# type and code numbers from include/uapi/linux/input-event-codes.h: EV_SYN 0, EV_KEY 1, EV_ABS 3, ABS_Y 1,
+# ABS_RX 3, BTN_TL 310, BTN_TR 311.
+RECORD = struct.Struct("@llHHi")
+
+
+def records(*events: tuple[float, int, int, int]) -> bytes:
+    out = b""
+    for t, kind, code, value in events:
+        out += RECORD.pack(int(t), round((t % 1) * 1e6), kind, code, value)
+        out += RECORD.pack(int(t), round((t % 1) * 1e6), 0, 0, 0)      # SYN_REPORT after each, as the kernel does
+    return out
+
+
+def test_records_from_a_pipe_become_named_events_and_the_end_is_seen() -> None:
+    read, write = os.pipe()
+    os.write(write, records((12.25, 3, 1, -32768), (12.5, 1, 310, 1)))
+    os.close(write)          # the "device" goes away
+    try:
+        assert list(read_events(read)) == [Event(12.25, "EV_ABS", "ABS_Y", -32768), Event(12.5, "EV_KEY", "BTN_TL", 1)]
+    finally:
+        os.close(read)
+
+
+def test_input_watch_on_a_fifo(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
+    fifo = tmp_path / "pad"
+    os.mkfifo(fifo)
+
+    def pad() -> None:
+        with open(fifo, "wb") as out:   # blocks until the watcher opens its end
+            out.write(records((1.0, 1, 310, 1), (1.1, 3, 1, -32768), (1.2, 1, 310, 0), (1.3, 1, 311, 1)))
+
+    writer = threading.Thread(target=pad)
+    writer.start()
+    code = main(["input", "watch", str(fifo), "--profile", str(WREN)])
+    writer.join(5.0)
+    lines = capsys.readouterr().out.splitlines()
+    assert code == 0
+    assert lines[0].startswith("watching")
+    assert "BTN_TL" in lines[1] and "held" in lines[1]
+    # full forward at the default setting 0.3: 0.3 x 1.0 m/s
+    assert "ABS_Y" in lines[2] and "speed +0.300 m/s" in lines[2]
+    assert "released" in lines[3] and "speed +0.000" in lines[3]
+    assert "stop fast" in lines[4]
+    assert "no more events" in lines[5]
+
+
+def test_watching_something_that_is_not_a_device_is_one_line(tmp_path: Path,
+                                                              capsys: pytest.CaptureFixture[str]) -> None:
+    plain = tmp_path / "notes.txt"
+    plain.write_text("hello")
+    assert main(["input", "watch", str(plain)]) == 2
+    err = capsys.readouterr().err
+    assert err.count("\n") == 1 and "input_event records" in err
