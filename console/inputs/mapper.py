@@ -152,3 +152,53 @@ class Mapper:
         w = 0.0 if turn.needs_centre else turn.position
         top = self.top_speed_mps if y >= 0.0 else self.top_reverse_speed_mps
         return Request(t_s, y * self.setting * top, w * self.setting * self.top_turn_rate_radps, True)
+
+
+KEYBOARD_DRIVE = {"KEY_UP": (1.0, 0.0), "KEY_DOWN": (-1.0, 0.0), "KEY_LEFT": (0.0, 1.0), "KEY_RIGHT": (0.0, -1.0)}
+KEYBOARD_FAST_STOP = "KEY_X"                       # the console's own fast-stop key, on the local keyboard too
+KEYBOARD_SETTING = {"KEY_LEFTBRACE": -SPEED_SETTING_STEP, "KEY_RIGHTBRACE": SPEED_SETTING_STEP}   # [ and ]
+
+
+@dataclass(slots=True)
+class KeyboardMapper:
+    """A keyboard on the machine itself, read through the input subsystem: real press and release events.
+
+    Holding an arrow drives at the speed setting (up / down: speed, left / right: turn); letting go of the last one
+    gives zero in the same event. The arrows themselves are the operator's presence: enabled while one is held.
+    """
+
+    top_speed_mps: float
+    top_reverse_speed_mps: float
+    top_turn_rate_radps: float
+    setting: float = SPEED_SETTING_DEFAULT
+    _held: set[str] = field(default_factory=set)
+
+    @property
+    def enabled(self) -> bool:
+        return bool(self._held)
+
+    def require_centre(self) -> None:
+        """At arming: keys already held count only once pressed again (no lurch)."""
+        self._held.clear()
+
+    def feed(self, event: Event) -> Request:
+        stop: Stop | None = None
+        if event.type == "EV_KEY" and event.value in (KEY_PRESSED, KEY_RELEASED):
+            pressed = event.value == KEY_PRESSED
+            if event.code in KEYBOARD_DRIVE:
+                (self._held.add if pressed else self._held.discard)(event.code)
+            elif event.code == KEYBOARD_FAST_STOP and pressed:
+                stop = Stop.FAST
+            elif event.code in KEYBOARD_SETTING and pressed:
+                low, high = SPEED_SETTING_RANGE
+                self.setting = round(max(low, min(high, self.setting + KEYBOARD_SETTING[event.code])), 6)
+        if not self._held or stop is not None:
+            return Request(event.t_s, 0.0, 0.0, self.enabled, stop)
+        y = sum(KEYBOARD_DRIVE[key][0] for key in self._held)
+        w = sum(KEYBOARD_DRIVE[key][1] for key in self._held)
+        top = self.top_speed_mps if y >= 0.0 else self.top_reverse_speed_mps
+        return Request(event.t_s, y * self.setting * top, w * self.setting * self.top_turn_rate_radps, True)
+
+    def lost(self, t_s: float) -> Request:
+        self._held.clear()
+        return Request(t_s, 0.0, 0.0, False, Stop.LOST)

@@ -18,7 +18,14 @@ from pathlib import Path
 from console.errors import InputError
 from console.files import PLAIN_NUMBER, STDOUT, atomic_output, plain_number, read_csv_rows
 from console.inputs.device import describe, list_devices, open_source, read_events
-from console.inputs.mapper import SPEED_SETTING_DEFAULT, SPEED_SETTING_RANGE, Event, InputConfig, Mapper
+from console.inputs.mapper import (
+    SPEED_SETTING_DEFAULT,
+    SPEED_SETTING_RANGE,
+    Event,
+    InputConfig,
+    KeyboardMapper,
+    Mapper,
+)
 from console.profile import Profile, load_profile
 
 NAME = "input"
@@ -47,17 +54,21 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
                               "t_s,absinfo,ABS_Y,min:max:flat gives an axis's range")
     preview.add_argument("-o", "--output", metavar="OUT.csv", default=STDOUT,
                          help="write here instead of standard output")
+    preview.add_argument("--source", choices=("gamepad", "keyboard"), default="gamepad",
+                         help="what recorded the events: a gamepad (the profile's [input]) or a local keyboard "
+                              "(hold an arrow to drive, [ and ] for the speed setting, x for a fast stop)")
     low, high = SPEED_SETTING_RANGE
     preview.add_argument("--speed-setting", type=float, default=SPEED_SETTING_DEFAULT, metavar="F",
                          help=f"the speed setting to start from, a fraction of top speed and turn rate ({low:g} to "
                               f"{high:g}, default {SPEED_SETTING_DEFAULT:g})")
 
 
-def map_events(profile: Profile, path: str | Path, setting: float) -> list[str]:
+def map_events(profile: Profile, path: str | Path, setting: float, source: str = "gamepad") -> list[str]:
     """The output rows (CSV lines) for an event file; the whole file is checked before anything is written."""
     envelope = profile.envelope
-    mapper = Mapper(profile.input, envelope.top_speed_mps, envelope.top_reverse_speed_mps,
-                    envelope.top_turn_rate_radps, setting=setting)
+    tops = (envelope.top_speed_mps, envelope.top_reverse_speed_mps, envelope.top_turn_rate_radps)
+    mapper: Mapper | KeyboardMapper = (Mapper(profile.input, *tops, setting=setting) if source == "gamepad"
+                                       else KeyboardMapper(*tops, setting=setting))
     lines, previous = [",".join(OUTPUT_HEADER)], -math.inf
     for where, row in read_csv_rows(path, "an input event log (CSV)", EVENT_HEADER):
         t = plain_number(where, "t_s", row[0])
@@ -72,7 +83,8 @@ def map_events(profile: Profile, path: str | Path, setting: float) -> list[str]:
             low, high, flat = (float(part) for part in parts)
             if not (high > low and 0.0 <= flat < (high - low) / 2.0):
                 raise InputError(where, "value", text[:40], "min < max and 0 <= flat < (max - min) / 2")
-            mapper.set_range(code, low, high, flat)
+            if isinstance(mapper, Mapper):
+                mapper.set_range(code, low, high, flat)
             continue
         if kind not in EVENT_TYPES:
             raise InputError(where, "type", kind[:40], "one of " + ", ".join(EVENT_TYPES) + ", or absinfo")
@@ -142,7 +154,7 @@ def run(args: argparse.Namespace) -> int:
     low, high = SPEED_SETTING_RANGE
     if not (math.isfinite(args.speed_setting) and low <= args.speed_setting <= high):
         raise InputError("command line", "--speed-setting", args.speed_setting, f"a fraction from {low:g} to {high:g}")
-    lines = map_events(load_profile(args.profile), args.events, args.speed_setting)
+    lines = map_events(load_profile(args.profile), args.events, args.speed_setting, args.source)
     with atomic_output(args.output) as out:
         out.write("\n".join(lines) + "\n")
     return 0

@@ -21,7 +21,7 @@ from hypothesis import strategies as st
 
 from console.cli import main
 from console.inputs.device import read_events
-from console.inputs.mapper import Event, InputConfig, Mapper, Stop, stick_position
+from console.inputs.mapper import Event, InputConfig, KeyboardMapper, Mapper, Stop, stick_position
 
 WREN = Path(__file__).resolve().parents[2] / "profiles" / "wren.toml"
 CONFIG = InputConfig()
@@ -228,3 +228,27 @@ def test_watching_something_that_is_not_a_device_is_one_line(tmp_path: Path,
     assert main(["input", "watch", str(plain)]) == 2
     err = capsys.readouterr().err
     assert err.count("\n") == 1 and "input_event records" in err
+
+
+def test_a_local_keyboard_drives_while_an_arrow_is_held_and_stops_on_release() -> None:
+    keys = KeyboardMapper(TOP_V, TOP_REV, TOP_W, setting=0.5)
+    assert keys.feed(Event(0.0, "EV_KEY", "KEY_UP", 1)).v_mps == pytest.approx(0.5 * TOP_V)
+    assert keys.feed(Event(0.1, "EV_KEY", "KEY_UP", 2)).v_mps == pytest.approx(0.5 * TOP_V)   # auto-repeat: held
+    both = keys.feed(Event(0.2, "EV_KEY", "KEY_LEFT", 1))
+    assert (both.v_mps, both.omega_radps) == pytest.approx((0.5 * TOP_V, 0.5 * TOP_W))
+    keys.feed(Event(0.3, "EV_KEY", "KEY_LEFT", 0))
+    released = keys.feed(Event(0.4, "EV_KEY", "KEY_UP", 0))
+    assert (released.v_mps, released.omega_radps, released.enabled) == (0.0, 0.0, False)   # at once, exactly
+    assert keys.feed(Event(0.5, "EV_KEY", "KEY_RIGHTBRACE", 1)).v_mps == 0.0              # setting up, no motion
+    assert keys.feed(Event(0.6, "EV_KEY", "KEY_DOWN", 1)).v_mps == pytest.approx(-0.6 * TOP_REV)
+    assert keys.feed(Event(0.7, "EV_KEY", "KEY_X", 1)).stop is Stop.FAST
+    keys.require_centre()                       # at arming, a key still held counts only when pressed again
+    assert keys.feed(Event(0.8, "EV_KEY", "KEY_DOWN", 2)).v_mps == 0.0
+
+
+def test_input_map_with_a_keyboard_log(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
+    log = "t_s,type,code,value\n0.0,EV_KEY,KEY_UP,1\n0.5,EV_KEY,KEY_UP,0\n"
+    code, out, _ = run_map(tmp_path, capsys, log, "--source", "keyboard")
+    rows = list(csv.DictReader(io.StringIO(out)))
+    assert code == 0
+    assert [(row["v_mps"], row["enabled"]) for row in rows] == [(f"{0.3 * TOP_V:.10g}", "1"), ("0", "0")]
