@@ -27,7 +27,7 @@ import numpy as np
 
 from console.errors import LinkLost
 from console.protocol import SEQ_MODULUS, Codec, Flags, Heartbeat, StopCommand, Telemetry, WheelCommand, next_seq
-from console.sim.plant import arc_step
+from shaping.odometry import arc_step
 from shaping.envelope import Bound
 from shaping.shaper import Shaped, Shaper, StopKind
 

@@ -28,6 +28,7 @@ import numpy as np
 
 from console.sim.motor import DcMotor
 from shaping.geometry import Geometry
+from shaping.odometry import arc_step
 
 if TYPE_CHECKING:
     from console.profile import SimConfig
@@ -37,8 +38,6 @@ _TIME_EPS_S = 1e-9
 """Slack when comparing accumulated step times with the instant a delayed command takes effect."""
 _SETTLED_RADPS = 1e-9
 """A wheel within this of its target rate is taken as there (the exponential never gets there; real wheels stick)."""
-_STRAIGHT_HALF_ANGLE_RAD = 1e-6
-"""Below this half heading change per step the chord factor sin(h)/h uses its series (straight-line limit)."""
 
 
 @dataclass(frozen=True, slots=True)
@@ -56,23 +55,6 @@ class PlantState:
     x_m: float
     y_m: float
     heading_rad: float
-
-
-def arc_step(
-    x_m: float, y_m: float, heading_rad: float, v_mps: float, omega_radps: float, dt_s: float
-) -> tuple[float, float, float]:
-    """Pose after moving for dt at constant v and omega: exactly on the arc (a straight line as omega -> 0).
-
-    The chord of the arc has length v*dt*sin(h)/h with h = omega*dt/2 and points along the mean heading
-    heading + h; this form has no 1/omega, so it stays exact and finite through omega = 0.
-    """
-    half = 0.5 * omega_radps * dt_s
-    if -_STRAIGHT_HALF_ANGLE_RAD < half < _STRAIGHT_HALF_ANGLE_RAD:
-        chord = v_mps * dt_s * (1.0 - half * half / 6.0)
-    else:
-        chord = v_mps * dt_s * math.sin(half) / half
-    mid = heading_rad + half
-    return x_m + chord * math.cos(mid), y_m + chord * math.sin(mid), heading_rad + 2.0 * half
 
 
 class _DelayLine:
