@@ -36,6 +36,12 @@ class LinkLost(DiffdeckError):
     exit_code = 3
 
 
+class LoopFailure(DiffdeckError):
+    """An error inside a control cycle (a bug): the loop sent category-0 stop frames and the recording was kept."""
+
+    exit_code = 7
+
+
 class RobotFault(DiffdeckError):
     """The robot reported a fault or a watchdog trip."""
 

@@ -33,8 +33,10 @@ from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
 from console.errors import InputError, LinkLost
-from console.loop import (ControlLoop, Event, LinkStats, LoopStats, SafetyState, Snapshot, StopCause, WallClock,
-                          request_realtime)
+from console.core.link import LinkStats
+from console.core.safety import SafetyState, StopCause
+from console.core.step import Event, LoopStats, Snapshot
+from console.loop import ControlLoop, WallClock, request_realtime
 from shaping.ramp import plan_ramp
 from shaping.shaper import StopKind, speed_limits, turn_limits
 

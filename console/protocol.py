@@ -41,6 +41,14 @@ class Flags(enum.IntFlag):
     SATURATED = 0x40    # the firmware clamped a commanded rate to its own limit
 
 
+_FLAG_NAMES = {int(flag): str(flag.name) for flag in Flags}
+
+
+def flag_names(flags: int) -> tuple[str, ...]:
+    """Each set bit by name, low bit first; a reserved bit as "bit N" (shown, never hidden)."""
+    return tuple(_FLAG_NAMES.get(1 << bit, f"bit {bit}") for bit in range(16) if flags >> bit & 1)
+
+
 @dataclass(frozen=True, slots=True)
 class WheelCommand:
     """Console -> robot: wheel rates in the profile's firmware unit; feeds the robot's watchdog."""

@@ -44,7 +44,8 @@ _NUMBER = r" *[-+]? *(?:\d[\d,_]*(?:\.\d*)?|\.\d+)(?:[eE][-+]?\d+)?%?"
 class _LineReader:
     """Text lines from bytes, bounded: a line longer than MAX_TEMPLATE_LINE is dropped (and counted) whole."""
 
-    crc_errors = 0
+    crc_errors = 0              # template lines carry no checksum
+    noise_bytes = 0             # a line that is no template is counted as an unknown frame instead
 
     def __init__(self) -> None:
         self._pending = b""

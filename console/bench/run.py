@@ -17,9 +17,11 @@ from pathlib import Path
 from typing import Any
 
 from console.bench.program import BoundProgram, Program
+from console.core.safety import SafetyState, StopCause
+from console.core.step import Snapshot
 from console.errors import InputError, LinkLost, OutputError
 from console.files import reason, write_atomic
-from console.loop import ControlLoop, SafetyState, Snapshot, StopCause, VirtualClock, WallClock
+from console.loop import ControlLoop, VirtualClock, WallClock
 from console.profile import Profile
 from console.record import Recorder, sidecar_path
 from console.transport import memory_pair, open_url
@@ -201,9 +203,9 @@ class BenchRun:
         self._started = True
         self.loop.start()
 
-    def stop(self) -> None:
-        """Controlled stop now (operator); the recording is kept."""
-        self.loop.stop(StopKind.CONTROLLED, StopCause.OPERATOR)
+    def stop(self, cause: StopCause = StopCause.OPERATOR) -> None:
+        """Controlled stop now (operator, or a signal); the recording is kept."""
+        self.loop.stop(StopKind.CONTROLLED, cause)
         if self._phase in (Phase.RUNNING, Phase.ARMING):
             self._phase = Phase.ENDING
         elif self._phase is Phase.WAITING:

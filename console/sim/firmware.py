@@ -3,7 +3,7 @@
 Behaviour (what PROTOCOL.md asks of real firmware; the flags are `console.protocol.Flags`):
 - Power-up: STOPPED, motors at zero, motion watchdog not armed.
 - Release: a valid W frame with both wheels exactly 0 clears STOPPED, WATCHDOG and POWER_OFF and arms the watchdog
-  (never while FAULT is set). The firmware never restarts into motion by itself: a W frame with motion while STOPPED
+  (never while FAULT or ESTOP is set). The firmware never restarts into motion by itself: a W frame with motion while STOPPED
   is ignored (it still counts as received and is echoed).
 - Running: W frames set the wheel commands (firmware unit -> wheel rad/s); SATURATED is set while a command exceeds
   the motors' top rate (the plant clamps it).
@@ -51,6 +51,8 @@ _INT32 = 1 << 32
 
 _WATCHDOG = int(Flags.WATCHDOG)
 _FAULT = int(Flags.FAULT)
+_ESTOP = int(Flags.ESTOP)
+_NO_RELEASE = _FAULT | _ESTOP
 _STOPPED = int(Flags.STOPPED)
 _POWER_OFF = int(Flags.POWER_OFF)
 _SATURATED = int(Flags.SATURATED)
@@ -127,6 +129,14 @@ class SimRobot:
         else:
             self._flags &= ~_FAULT
 
+    def set_estop(self, open_circuit: bool) -> None:
+        """Open (or close again) the emergency-stop circuit: ESTOP set, wheels to zero at once, no release while open."""
+        if open_circuit:
+            self._flags |= _ESTOP
+            self._halt()
+        else:
+            self._flags &= ~_ESTOP
+
     # -- firmware ------------------------------------------------------------------------------------------------
     def advance(self, dt_s: float) -> None:
         """Take in what arrived, then step the plant by dt in equal sub-steps, sending telemetry when it is due.
@@ -188,7 +198,7 @@ class SimRobot:
 
     def _command(self, left_radps: float, right_radps: float, at_rest: bool) -> None:
         if not self._running:
-            if not (at_rest and self._flags & _FAULT == 0):
+            if not (at_rest and self._flags & _NO_RELEASE == 0):
                 return                       # held: motion needs a release first
             self._flags &= ~_RELEASABLE
             self._running = True

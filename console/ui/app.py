@@ -16,7 +16,7 @@ from textual.binding import Binding
 from textual.containers import Horizontal, Vertical
 from textual.screen import Screen
 
-from console.loop import SafetyState, StopCause
+from console.core.safety import SafetyState, StopCause
 from console.ui.driving import DriveInput, DriveMode, DriveSettings
 from console.ui.screens import CautionScreen, HelpScreen
 from console.ui.trace import KeyWireTrace
@@ -27,7 +27,8 @@ from console.ui.widgets import (
 from shaping.shaper import StopKind
 
 if TYPE_CHECKING:
-    from console.loop import Clock, ControlLoop, Snapshot
+    from console.core.step import Snapshot
+    from console.loop import Clock, ControlLoop
     from console.loop_process import LoopProcess
     from console.profile import Profile
 

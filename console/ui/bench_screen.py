@@ -7,6 +7,8 @@ controlled stop, x a fast stop, q stops and quits; the recording is kept in ever
 
 from __future__ import annotations
 
+import asyncio
+import signal
 from typing import Any
 
 from textual.app import App, ComposeResult
@@ -15,10 +17,11 @@ from textual.containers import Vertical
 from textual.widgets import ProgressBar, Static
 
 from console.bench.run import BenchResult, BenchRun
-from console.loop import StopCause
+from console.core.safety import StopCause
 from console.ui.widgets import EventLog, SafetyBanner, TracePlot
 from shaping.shaper import StopKind
 
+ENDING_SIGNALS = (signal.SIGTERM, signal.SIGHUP)
 RENDER_HZ = 20.0
 UI_TIMEOUT_S = 0.5
 """The loop brings the robot to a fast stop when the screen has not refreshed for this long (a stalled UI)."""
@@ -41,6 +44,12 @@ class BenchApp(App[int]):
         self.run_ = run
         self.result: BenchResult | None = None
         self._events_seen = 0
+        self.ended_by: int | None = None
+
+    def _end_by_signal(self, signum: int) -> None:
+        """SIGTERM / SIGHUP: leave the app with 128 + the signal; `finish()` then stops the robot under control."""
+        self.ended_by = signum
+        self.exit(128 + signum)
 
     def compose(self) -> ComposeResult:
         env = self.run_.profile.envelope
@@ -55,6 +64,9 @@ class BenchApp(App[int]):
                          "safety function: keep the hardware stop within reach", id="keys")
 
     def on_mount(self) -> None:
+        loop = asyncio.get_running_loop()      # handlers on the app's own event loop: never inside a held lock
+        for signum in ENDING_SIGNALS:
+            loop.add_signal_handler(signum, self._end_by_signal, signum)
         self.run_.start()
         self.set_interval(1.0 / RENDER_HZ, self.tick)
 
@@ -93,14 +105,17 @@ class BenchApp(App[int]):
             return                           # quit once at rest (the next q), so the stop is seen on screen
         self.exit(0 if self.result is not None and self.result.completed else 130)
 
-    def finish(self) -> BenchResult:
-        """After the app has exited: the run's result (closing it if the app did not get to)."""
+    def finish(self, cause: StopCause = StopCause.OPERATOR) -> BenchResult:
+        """After the app has exited: the run's result (stopping and closing it if the app did not get to)."""
+        if self.result is None and not self.run_.progress.done:
+            self.run_.stop(cause)
         return self.result if self.result is not None else self.run_.close()
 
 
 def run_bench_screen(run: BenchRun) -> tuple[int, BenchResult]:
-    """Show the bench screen until the operator quits; the exit code and the run's result."""
+    """Show the bench screen until the operator quits (or SIGTERM / SIGHUP end it); the exit code and the result."""
     app = BenchApp(run)
     code: Any = app.run()
-    return int(code if code is not None else 130), app.finish()   # finish() stops the robot first if needed
+    result = app.finish(StopCause.SIGNAL if app.ended_by is not None else StopCause.OPERATOR)   # stops first
+    return int(code if code is not None else 130), result
 

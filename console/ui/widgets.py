@@ -16,12 +16,14 @@ from rich.style import Style
 from textual.strip import Strip
 from textual.widget import Widget
 
+from console.protocol import flag_names
 from console.ui.bigtext import big_lines, big_width
 from console.ui.braille import BrailleCanvas
 from console.ui.rows import Rows
 
 if TYPE_CHECKING:
-    from console.loop import Snapshot
+    from console.core.codec import DecoderCounts
+    from console.core.step import Snapshot
     from console.profile import Profile
 
 
@@ -147,6 +149,16 @@ class HintBar(Panel):
         return text
 
 
+def _decoder_text(decoder: DecoderCounts) -> str:
+    """The decoder's non-zero discard counters (crc, overlong, unknown, malformed lines; noise bytes), or "none"."""
+    parts = [f"{name} {count}" for name, count in (
+        ("crc", decoder.crc_errors), ("long", decoder.overlong_lines), ("unk", decoder.unknown_frames),
+        ("bad", decoder.malformed)) if count]
+    if decoder.noise_bytes:
+        parts.append(f"noise {decoder.noise_bytes} B")
+    return " ".join(parts) or "none"
+
+
 class LinkPanel(Panel):
     """Link health and loop timing: the first thing to read when the robot does not do what the screen says."""
 
@@ -157,8 +169,8 @@ class LinkPanel(Panel):
             link.telemetry_age_s * 1000.0 / AGE_STEP_MS))
         rtt = None if link.rtt_s is None else round(link.rtt_s * 1000.0)
         self._update((
-            link.url, round(link.rate_hz, 1), rate_set_hz, rtt, age, link.crc_errors, link.overlong_lines,
-            link.unknown_frames, link.frames_sent, link.telemetry_received,
+            link.url, round(link.rate_hz, 1), rate_set_hz, rtt, age, link.decoder, link.frames_sent,
+            link.telemetry_received,
             None if snap.battery_v is None else round(snap.battery_v, 1), snap.flags,
             round(loop.period_error_p99_s * 1e3, 2), round(loop.period_error_max_s * 1e3, 2), loop.overruns,
         ))
@@ -166,18 +178,17 @@ class LinkPanel(Panel):
     def paint(self, width: int, height: int) -> Rows:
         if self._shown is None:
             return Rows()
-        (url, rate, rate_set, rtt, age, crc, overlong, unknown, sent, received, battery, flags, p99, pmax,
-         overruns) = self._shown
-        flag_names = [name for bit, name in ((1, "WATCHDOG"), (2, "FAULT"), (4, "STOPPED")) if flags & bit]
+        url, rate, rate_set, rtt, age, decoder, sent, received, battery, flags, p99, pmax, overruns = self._shown
+        names = flag_names(flags)
         rows = [
             ("url", url),
             ("rate", f"{rate:.1f} of {rate_set:g} Hz"),
             ("telemetry", "none yet" if age is None else f"≤ {age} ms ago"),
             ("round trip", "—" if rtt is None else f"{rtt} ms"),
-            ("errors", f"crc {crc} long {overlong} unk {unknown}"),
+            ("errors", _decoder_text(decoder)),
             ("loop late", f"p99 {p99:.2f} max {pmax:.{1 if pmax >= 10.0 else 2}f} ms"),
             ("missed", f"{overruns} period" + ("" if overruns == 1 else "s")),
-            ("battery", ("—" if battery is None else f"{battery:.1f} V") + (f"  {' '.join(flag_names)}" if flag_names else "")),
+            ("battery", ("—" if battery is None else f"{battery:.1f} V") + (f"  {' '.join(names)}" if names else "")),
             ("frames", f"tx {sent} rx {received}"),
         ]
         text = Rows()

@@ -20,8 +20,9 @@ from console.bench.recording import read_recording
 from console.bench.run import STOP_WAIT_S, BenchResult, BenchRun
 from console.errors import InputError, LinkLost, RobotFault
 from console.interrupts import Interrupts
-from console.loop import StopCause
+from console.core.safety import StopCause
 from console.profile import load_profile
+from shaping.shaper import StopKind
 
 NAME = "bench"
 HELP = "run a bench test program (built-in or TOML) on the robot, wheels off the ground, and record it"
@@ -29,6 +30,8 @@ ORDER = 60
 
 CONFIRMATION = "wheels up"
 EXIT_INTERRUPTED = 130
+"""The program did not run to its end (stopped from the screen); a signal's own code (128 + its number) wins."""
+ESCALATION = (StopKind.CONTROLLED, StopKind.FAST, StopKind.IMMEDIATE)
 CAUTION = ("Bench test: the robot moves by itself. Wheels OFF THE GROUND (robot on a stand), a hardware emergency "
            "stop within reach. A software stop is not a safety function.")
 
@@ -54,15 +57,26 @@ def _confirm(console: Console, url: str) -> None:
                          f"type exactly {CONFIRMATION!r} to run on {url}")
 
 
-def _outcome(result: BenchResult, interrupted: bool) -> int:
+def _say(console: Console, text: str) -> None:
+    """A progress line; a terminal that went away (SIGHUP) must not interrupt the stop."""
+    try:
+        console.print(text)
+    except OSError:
+        pass
+
+
+def _outcome(result: BenchResult, interrupted: int) -> int:
+    """The exit code: errors raised as their one line, else the signal's code, 130 for a program cut short, 0."""
     kept = f"; recording kept in {result.recording}"
     if result.failure is not None:
         raise LinkLost(f"bench: {result.failure}{kept}")
     if result.cause is StopCause.LINK_LOST:
         raise LinkLost(f"bench: link lost during the program; the robot's own watchdog must stop it{kept}")
-    if result.cause in (StopCause.WATCHDOG, StopCause.FAULT):
+    if result.cause in (StopCause.WATCHDOG, StopCause.FAULT, StopCause.ESTOP):
         raise RobotFault(f"bench: the robot reported a {result.cause.value}; the console stopped{kept}")
-    return EXIT_INTERRUPTED if interrupted or not result.completed else 0
+    if interrupted:
+        return interrupted
+    return EXIT_INTERRUPTED if not result.completed else 0
 
 
 def run(args: argparse.Namespace) -> int:
@@ -97,7 +111,7 @@ def run(args: argparse.Namespace) -> int:
 
         code, result = run_bench_screen(bench)
         console.print(f"bench: recording {result.recording} (+ {result.bench_sidecar.name})")
-        return _outcome(result, code != 0)
+        return _outcome(result, code)
     interrupts = Interrupts()
     try:
         with Progress(TextColumn("{task.description}"), BarColumn(), TextColumn("{task.fields[segment]}"),
@@ -106,11 +120,17 @@ def run(args: argparse.Namespace) -> int:
             if not bench.fast:
                 bench.start()
             stop_asked_at: float | None = None
+            asked = 0
             while not bench.progress.done:
-                if interrupts.count and stop_asked_at is None:
-                    bench.stop()
-                    stop_asked_at = time.monotonic()
-                    console.print("bench: Ctrl-C: controlled stop; the recording is kept")
+                if interrupts.count > asked:
+                    asked = interrupts.count
+                    kind = ESCALATION[min(asked - 1, 2)]
+                    if stop_asked_at is None:
+                        bench.stop(interrupts.cause)
+                        stop_asked_at = time.monotonic()
+                    else:
+                        bench.loop.stop(kind, interrupts.cause)
+                    _say(console, f"bench: {interrupts.name}: {kind.value} stop; the recording is kept")
                 if stop_asked_at is not None and time.monotonic() - stop_asked_at > STOP_WAIT_S:
                     break
                 if bench.fast:
@@ -123,7 +143,7 @@ def run(args: argparse.Namespace) -> int:
     finally:
         interrupts.restore()
         result = bench.close()
-    code = _outcome(result, interrupts.count > 0)
+    code = _outcome(result, interrupts.exit_code)
     if code == 0 and bench.url != "sim":
         _ask_observations(console, result)
     console.print(f"bench: recording {result.recording} (+ {result.bench_sidecar.name}); "

@@ -17,7 +17,8 @@ import time
 from typing import TYPE_CHECKING
 
 from console.errors import InputError
-from console.loop import SafetyState, StopCause, WallClock
+from console.core.safety import SafetyState, StopCause
+from console.loop import WallClock
 from console.profile import Profile, load_profile
 from console.record import default_path
 from console.transport import Transport, memory_pair, open_url

@@ -5,8 +5,10 @@ bench. The trace is the same CSV as `shape` reads (each row held until the next 
 before the link is opened, and the recording is only created once the link is up.
 
 Exit codes: 0 the trace was played and the robot brought to a controlled stop; 2 bad input; 3 link lost; 4 the robot
-reported a fault or a watchdog trip; 130 interrupted by Ctrl-C (the robot was brought to a controlled stop and the
-recording kept: the trace was not played to its end, so scripts must not mistake it for a completed run).
+reported a fault, an emergency stop or a watchdog trip; 7 the control loop failed inside a cycle (category-0 stop
+frames sent, recording kept); 130 / 143 / 129 ended by Ctrl-C / SIGTERM / SIGHUP (the robot was brought to a
+controlled stop and the recording kept with its sidecar: the trace was not played to its end, so scripts must not
+mistake it for a completed run).
 """
 
 from __future__ import annotations
@@ -16,9 +18,12 @@ import bisect
 import time
 from pathlib import Path
 
-from console.errors import InputError, LinkLost, OutputError, RobotFault
+from console.errors import InputError, LinkLost, LoopFailure, OutputError, RobotFault
 from console.interrupts import Interrupts
-from console.loop import ControlLoop, SafetyState, Snapshot, StopCause, VirtualClock, WallClock
+from console.core.safety import SafetyState, StopCause
+from console.core.step import Snapshot
+from console.protocol import flag_names
+from console.loop import ControlLoop, VirtualClock, WallClock
 from console.profile import load_profile
 from console.record import Recorder, default_path, sidecar_path
 from console.sim.firmware import SimRobot
@@ -37,7 +42,6 @@ FIRST_TELEMETRY_GRACE_S = 1.0
 SETTLE_LIMIT_S = 60.0
 """After the last row, the longest the request is held while waiting for the shaped output to settle."""
 STOP_LIMIT_S = 60.0
-EXIT_INTERRUPTED = 130
 ESCALATION = (StopKind.CONTROLLED, StopKind.FAST, StopKind.IMMEDIATE)
 
 CAUTIONS = """\
@@ -101,7 +105,8 @@ class _Run:
         else:
             time.sleep(seconds)
         if self.loop.failure is not None:
-            raise self.loop.failure
+            raise LoopFailure(f"control loop failed inside a cycle ({self.loop.failure!r}); category-0 stop frames "
+                              "sent")
 
     def poll(self) -> Snapshot:
         self.wait(POLL_S if not self.fast else 1.0 / self.loop.profile.link.rate_hz)
@@ -115,6 +120,14 @@ class _Run:
                 return snapshot
             if snapshot.t_s >= deadline or self.interrupts.count:
                 return None
+
+
+def _say(line: str) -> None:
+    """A progress line; a terminal that went away (SIGHUP) must not interrupt the stop that follows."""
+    try:
+        print(line, flush=True)
+    except OSError:
+        pass
 
 
 def _check_output(path: str | None) -> None:
@@ -132,8 +145,8 @@ def _fault_error(snapshot: Snapshot, url: str, record: Path) -> LinkLost | Robot
     if cause is StopCause.LINK_LOST:
         text = next((e.text for e in reversed(snapshot.events) if e.kind == "link"), f"link lost: {url}")
         return LinkLost(text + "; the robot's own watchdog must stop it" + kept)
-    if cause in (StopCause.WATCHDOG, StopCause.FAULT):
-        what = "a watchdog trip" if cause is StopCause.WATCHDOG else f"a fault (flags 0x{snapshot.flags:04X})"
+    if cause in (StopCause.WATCHDOG, StopCause.FAULT, StopCause.ESTOP):
+        what = f"{cause.value} (flags {' '.join(flag_names(snapshot.flags)) or 'none'})"
         return RobotFault(f"robot fault: {url} reports {what}; the console stopped" + kept)
     return None
 
@@ -166,8 +179,8 @@ def run(args: argparse.Namespace) -> int:
     session = _Run(loop, args.fast, interrupts)
     error: Exception | None = None
     try:
-        print(f"play: {profile.path} over {url} at {profile.link.rate_hz:g} Hz"
-              f"{' (virtual clock)' if args.fast else ''}; recording to {record}", flush=True)
+        _say(f"play: {profile.path} over {url} at {profile.link.rate_hz:g} Hz"
+             f"{' (virtual clock)' if args.fast else ''}; recording to {record}")
         if not args.fast:
             loop.start()
         error = _play(args, session, player, url, record)
@@ -177,11 +190,11 @@ def run(args: argparse.Namespace) -> int:
         stats = loop.stats()
         recorder.close(stats, loop.link_stats())
         error = error or recorder.problem     # a full disk: the run went on, the recording did not
-    print(f"play: {stats.cycles} cycles, {stats.overruns} missed periods, period error p99 "
-          f"{stats.period_error_p99_s * 1e3:.3f} ms; recording {record} (+ {sidecar_path(record).name})", flush=True)
+    _say(f"play: {stats.cycles} cycles, {stats.overruns} missed periods, period error p99 "
+         f"{stats.period_error_p99_s * 1e3:.3f} ms; recording {record} (+ {sidecar_path(record).name})")
     if error is not None:
         raise error
-    return EXIT_INTERRUPTED if interrupts.count else 0
+    return interrupts.exit_code
 
 
 def _play(args: argparse.Namespace, session: _Run, player: _Player, url: str, record: Path) -> Exception | None:
@@ -189,16 +202,16 @@ def _play(args: argparse.Namespace, session: _Run, player: _Player, url: str, re
     loop, interrupts = session.loop, session.interrupts
     timeout = loop.profile.link.telemetry_timeout_s
     if not args.yes:
-        print(CAUTIONS, flush=True)
+        _say(CAUTIONS)
         for n in range(COUNTDOWN_S, 0, -1):
-            print(f"arming in {n} s ...", flush=True)
+            _say(f"arming in {n} s ...")
             end = time.monotonic() + 1.0
             while time.monotonic() < end and not interrupts.count:
                 time.sleep(POLL_S)
                 if args.fast:
                     loop.run_cycles(1)
             if interrupts.count:
-                print("play: interrupted before arming; nothing moved", flush=True)
+                _say("play: interrupted before arming; nothing moved")
                 return None
     if session.wait_for(lambda s: s.link.telemetry_received > 0, timeout + FIRST_TELEMETRY_GRACE_S) is None:
         if interrupts.count:
@@ -213,7 +226,7 @@ def _play(args: argparse.Namespace, session: _Run, player: _Player, url: str, re
         if armed is not None and "reports" in reason:
             return RobotFault(f"robot fault: {url}: {reason}; nothing moved")
         return None if interrupts.count else LinkLost(f"link lost: {url}: {reason}; nothing moved")
-    print("play: armed", flush=True)
+    _say("play: armed")
     player.go = True
     ended = session.wait_for(
         lambda s: s.state is not SafetyState.ARMED or (player.last_row_passed and s.shaped.settled),
@@ -221,11 +234,11 @@ def _play(args: argparse.Namespace, session: _Run, player: _Player, url: str, re
     snapshot = loop.snapshot()
     if snapshot.state is not SafetyState.ARMED:
         return _finish_unasked_stop(session, snapshot, url, record)
-    cause = StopCause.OPERATOR if interrupts.count else StopCause.PROGRAM_END
+    cause = interrupts.cause if interrupts.count else StopCause.PROGRAM_END
     if interrupts.count:
-        print("play: interrupted: controlled stop", flush=True)
+        _say(f"play: {interrupts.name}: controlled stop")
     elif ended is None:
-        print(f"play: the output had not settled {SETTLE_LIMIT_S:g} s after the last row; stopping", flush=True)
+        _say(f"play: the output had not settled {SETTLE_LIMIT_S:g} s after the last row; stopping")
     return _stop(session, cause, url, record)
 
 
@@ -241,13 +254,13 @@ def _stop(session: _Run, cause: StopCause, url: str, record: Path) -> Exception 
             break
         if interrupts.count > asked:
             asked = interrupts.count
-            loop.stop(ESCALATION[min(asked - 1, 2)], StopCause.OPERATOR)
-            print(f"play: {ESCALATION[min(asked - 1, 2)].value} stop", flush=True)
+            loop.stop(ESCALATION[min(asked - 1, 2)], interrupts.cause)
+            _say(f"play: {ESCALATION[min(asked - 1, 2)].value} stop")
         if time.monotonic() > deadline:
             loop.stop(StopKind.IMMEDIATE, StopCause.OPERATOR)
     error = _fault_error(snapshot, url, record)
     if error is None:
-        print(f"play: stopped ({snapshot.cause.value})", flush=True)
+        _say(f"play: stopped ({snapshot.cause.value})")
     return error
 
 

@@ -16,15 +16,8 @@ import threading
 import time
 from pathlib import Path
 
-from console.loop import (
-    ControlLoop,
-    CycleStats,
-    DeadlineScheduler,
-    SafetyState,
-    VirtualClock,
-    WallClock,
-    request_realtime,
-)
+from console.core.safety import SafetyState
+from console.loop import ControlLoop, CycleStats, DeadlineScheduler, VirtualClock, WallClock, request_realtime
 from console.profile import load_profile
 from console.record import Recorder
 from console.sim.firmware import SimRobot

@@ -30,7 +30,9 @@ from typing import Any
 
 import numpy as np
 
-from console.loop import ControlLoop, Event, SafetyState, WallClock
+from console.core.safety import SafetyState
+from console.core.step import Event
+from console.loop import ControlLoop, WallClock
 from console.loop_process import LoopProcess
 from console.profile import Profile, load_profile
 from console.record import Recorder

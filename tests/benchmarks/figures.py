@@ -2,7 +2,7 @@
 
 from __future__ import annotations
 
-from console.loop import LoopStats
+from console.core.step import LoopStats
 
 
 def loop_timing(stats: LoopStats) -> dict[str, float | int]:

@@ -16,8 +16,8 @@ from pathlib import Path
 import numpy
 import pytest
 
-from console.loop import (CycleStats, DeadlineScheduler, ControlLoop, SafetyState, StopCause, VirtualClock,
-                          WallClock)
+from console.core.safety import SafetyState, StopCause
+from console.loop import CycleStats, DeadlineScheduler, ControlLoop, VirtualClock, WallClock
 from console.profile import load_profile
 from console.protocol import Decoder, Flags, Heartbeat, StopCommand, WheelCommand
 from console.record import Recorder, read_csv

@@ -18,8 +18,8 @@ from pathlib import Path
 
 import pytest
 
+from console.core.safety import SafetyState, StopCause
 from console.errors import InputError, LinkOpenError, OutputError
-from console.loop import SafetyState, StopCause
 from console.loop_process import ENDED, LoopProcess, LoopProcessEnded
 from console.profile import load_profile
 from console.record import read_csv, sidecar_path

@@ -72,7 +72,10 @@ def test_a_missing_device_cannot_be_opened_exit_5(tmp_path: Path, trace: Path, c
     assert not record.exists()
 
 
-def test_ctrl_c_gives_a_controlled_stop_and_keeps_the_recording(tmp_path: Path) -> None:
+@pytest.mark.parametrize("signum", [signal.SIGINT, signal.SIGTERM, signal.SIGHUP])
+def test_ctrl_c_sigterm_and_sighup_give_a_controlled_stop_and_keep_the_recording(tmp_path: Path, signum: int) -> None:
+    """Ctrl-C, `timeout` / a cancelled job (SIGTERM) and a dropped terminal or ssh session (SIGHUP) all stop the robot
+    under control and keep the recording with its sidecar; the exit code is 128 + the signal, as shells report it."""
     long_trace = tmp_path / "long.csv"
     long_trace.write_text("t_s,v_mps,omega_radps\n0.0,0.8,0.0\n60.0,0.0,0.0\n", encoding="utf-8")
     record = tmp_path / "interrupted.csv"
@@ -86,13 +89,13 @@ def test_ctrl_c_gives_a_controlled_stop_and_keeps_the_recording(tmp_path: Path) 
         rec_rows = 0
         while rec_rows < 150:                              # well under way (1.5 s of rows at 100 Hz)
             rec_rows = max(0, len(record.read_text(encoding="utf-8").splitlines()) - 1) if record.exists() else 0
-        player.send_signal(signal.SIGINT)
+        player.send_signal(signum)
         out, err = player.communicate(timeout=30)
     finally:
         if player.poll() is None:
             player.kill()
             player.wait()
-    assert player.returncode == 130, err
+    assert player.returncode == 128 + signum, err
     assert "controlled stop" in out and err == ""
     rec = read_csv(record)
     assert sidecar_path(record).exists()

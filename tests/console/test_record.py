@@ -18,7 +18,7 @@ from pathlib import Path
 import numpy
 import serial
 
-from console.loop import LoopStats
+from console.core.step import LoopStats
 from console.profile import load_profile
 from console.record import Recorder, default_path, read_csv, sidecar_path
 from tests.console.faults import DiskFillsUp

@@ -10,7 +10,8 @@ import pytest
 from hypothesis import given
 from hypothesis import strategies as st
 
-from console.loop import ControlLoop, SafetyState, VirtualClock
+from console.core.safety import SafetyState
+from console.loop import ControlLoop, VirtualClock
 from console.profile import TemplateConfig, load_profile
 from console.sim.firmware import SimRobot
 from console.protocol import Flags, Heartbeat, StopCommand, Telemetry, WheelCommand
@@ -246,7 +247,7 @@ def test_template_robot_drives_end_to_end_through_the_control_loop():
     assert snap.left_meas_radps == pytest.approx(snap.shaped.left_radps, rel=0.02)
     assert snap.right_meas_radps == pytest.approx(snap.shaped.right_radps, rel=0.02)
     assert snap.shaped.left_radps == pytest.approx(0.3 / DEMO_PROFILE.geometry.wheel_radius_m, rel=1e-6)
-    assert snap.link.crc_errors == snap.link.unknown_frames == 0 and snap.link.rtt_s is not None
+    assert snap.link.decoder.total == 0 and snap.link.rtt_s is not None
     assert wire[0].startswith(b"drv ") and wire[0].endswith(b" L+0.0000 R+0.0000\n")   # the release line
     loop.stop(StopKind.CONTROLLED)
     loop.run_cycles(round(3.0 * rate))

@@ -1,5 +1,5 @@
 """`diffdeck bench` in real time over a real pseudo-terminal to `diffdeck sim --pty`: the typed confirmation, the
-program, Ctrl-C (SIGINT) giving a controlled stop with the recording kept, and `diffdeck report` on the result."""
+program, Ctrl-C, SIGTERM and SIGHUP giving a controlled stop with the recording kept, and `diffdeck report` on the result."""
 
 from __future__ import annotations
 
@@ -54,7 +54,10 @@ def test_bench_over_a_pty_runs_in_real_time_and_reports(tmp_path: Path) -> None:
     assert json.loads(report.stdout)["fits"]["left"]["r2"] > 0.95
 
 
-def test_ctrl_c_stops_under_control_and_keeps_the_recording(tmp_path: Path) -> None:
+@pytest.mark.parametrize("signum, cause", [(signal.SIGINT, "operator"), (signal.SIGTERM, "signal"),
+                                           (signal.SIGHUP, "signal")])
+def test_ctrl_c_sigterm_and_sighup_stop_under_control_and_keep_the_recording(tmp_path: Path, signum: int,
+                                                                            cause: str) -> None:
     sim, device = start_sim()
     try:
         bench = _bench(device, "ramp", tmp_path / "rec")
@@ -67,16 +70,17 @@ def test_ctrl_c_stops_under_control_and_keeps_the_recording(tmp_path: Path) -> N
                 break
             time.sleep(0.2)
         assert csv is not None, bench.stderr.read() if bench.poll() is not None else "no recording"
-        bench.send_signal(signal.SIGINT)
+        bench.send_signal(signum)
         _, err = bench.communicate(timeout=60)
     finally:
         stop(sim)
-    assert bench.returncode == 130, err
+    assert bench.returncode == 128 + signum, err
     assert "controlled stop" in err
     rec = read_recording(csv)
     assert rec.data["v_mps"][-1] == 0.0
     side = json.loads(csv.with_name(csv.name + ".bench.json").read_text())
-    assert side["completed"] is False and side["cause"] == "operator"
+    assert side["completed"] is False and side["cause"] == cause
+    assert csv.with_name(csv.name + ".json").exists()          # the recording's own sidecar too
 
 
 def test_polarity_over_a_pty_asks_what_the_operator_saw(tmp_path: Path) -> None:

@@ -7,7 +7,7 @@ from pathlib import Path
 from console.bench.program import parse_program
 from console.bench.recording import read_recording
 from console.bench.run import BenchRun
-from console.loop import SafetyState, StopCause
+from console.core.safety import SafetyState, StopCause
 from console.profile import load_profile
 from console.ui.bench_screen import UI_TIMEOUT_S, BenchApp
 from console.ui.widgets import SafetyBanner, TracePlot

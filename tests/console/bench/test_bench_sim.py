@@ -20,7 +20,7 @@ from console.bench.report import FIGURES, analyze, write_report
 from console.bench.polarity import record_observations
 from console.bench.run import BenchRun, bench_sidecar_path
 from console.bench.tomledit import edit_toml
-from console.loop import SafetyState, StopCause
+from console.core.safety import SafetyState, StopCause
 from console.profile import Profile, load_profile
 
 ROOT = Path(__file__).resolve().parents[3]

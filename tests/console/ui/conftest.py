@@ -9,7 +9,8 @@ from pathlib import Path
 
 import pytest
 
-from console.loop import ControlLoop, Snapshot, VirtualClock
+from console.core.step import Snapshot
+from console.loop import ControlLoop, VirtualClock
 from console.profile import Profile, load_profile
 from console.sim.firmware import SimRobot
 from console.transport import MemoryTransport, memory_pair

@@ -12,7 +12,7 @@ import math
 import pytest
 from rich.console import Console
 
-from console.loop import SafetyState, StopCause
+from console.core.safety import SafetyState, StopCause
 from console.ui.app import DriveApp, DriveScreen
 from console.ui.driving import DriveMode
 from console.ui.screens import HELP_GROUPS, CautionScreen, HelpScreen, help_text
