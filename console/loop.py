@@ -375,4 +375,4 @@ class ControlLoop:
                                    s.state.value)
         if self._pose_columns:
             row += s.pose if s.pose is not None else (None, None, None)
-        self._recorder.put(row)
+        self._recorder.put((*row, s.flags))

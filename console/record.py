@@ -34,6 +34,8 @@ if TYPE_CHECKING:
 COLUMNS = ("t_s", "v_req_mps", "omega_req_radps", "v_mps", "omega_radps", "left_cmd_radps", "right_cmd_radps",
            "left_meas_radps", "right_meas_radps", "state")
 POSE_COLUMNS = ("x_m", "y_m", "heading_rad")
+FLAGS_COLUMN = "flags"
+"""Last column: the robot's telemetry flags as an integer (bits of console.protocol.Flags; 0 before any telemetry)."""
 FORMAT = "diffdeck recording 1"
 RECORDINGS_DIR = Path("recordings")
 
@@ -91,7 +93,7 @@ class Recorder:
         self.profile = profile
         self.link_url = link_url
         self.pose = link_url == "sim" if pose is None else pose
-        self.columns = COLUMNS + (POSE_COLUMNS if self.pose else ())
+        self.columns = COLUMNS + (POSE_COLUMNS if self.pose else ()) + (FLAGS_COLUMN,)
         self.started = datetime.now(timezone.utc)
         self.dropped = 0
         self.written = 0

@@ -41,6 +41,19 @@ enough and keeps the whole console within its CPU budget; their samples are stil
 not ticks, decides, so a run on the virtual clock draws the same frames every time."""
 
 
+AT_REST_RADPS = 0.05
+"""Measured wheel rates below this count as wheels at rest (a few encoder counts per telemetry frame; common
+practice, no standard value)."""
+
+
+def _wheels_word(snap: Snapshot) -> str:
+    """What fresh telemetry says about the wheels: at rest, still turning, or not known."""
+    left, right = snap.left_meas_radps, snap.right_meas_radps
+    if left is None or right is None or snap.link.lost is not None:
+        return "wheel motion unknown"
+    return "at rest" if max(abs(left), abs(right)) < AT_REST_RADPS else "wheels still turning"
+
+
 class DriveScreen(Screen[None]):
     """The main screen. Driving keys live here, so they are dead while an overlay is open; stops are on the app."""
 
@@ -128,16 +141,18 @@ class DriveScreen(Screen[None]):
                                           self._banner_detail(snap, drive, now_s))
         self.link_panel.show(snap, profile.link.rate_hz)
         self.limit_panel.show(snap)
+        age = snap.link.telemetry_age_s
+        stale = None if snap.link.lost is None or age is None else int(age)   # the last values, dimmed, with age
         meas_v = meas_w = None
         if snap.left_meas_radps is not None and snap.right_meas_radps is not None:
             meas_v, meas_w = geometry.to_body(snap.left_meas_radps, snap.right_meas_radps)
         reverse_bound, forward_bound = envelope.speed_bounds_at(s.omega_radps)
-        self.speed_gauge.show(s.v_req_mps, s.v_target_mps, s.v_mps, meas_v, -reverse_bound, forward_bound)
+        self.speed_gauge.show(s.v_req_mps, s.v_target_mps, s.v_mps, meas_v, -reverse_bound, forward_bound, stale)
         turn_bound = envelope.max_turn_rate_at(s.v_mps)
         self.turn_gauge.show(
-            s.omega_req_radps, s.omega_target_radps, s.omega_radps, meas_w, -turn_bound, turn_bound
+            s.omega_req_radps, s.omega_target_radps, s.omega_radps, meas_w, -turn_bound, turn_bound, stale
         )
-        self.wheel_panel.show(snap)
+        self.wheel_panel.show(snap, stale)
         nan = math.nan
         repaint = snap.t_s - self._heavy_t_s >= HEAVY_PERIOD_S
         if repaint:
@@ -152,13 +167,18 @@ class DriveScreen(Screen[None]):
 
     @staticmethod
     def _banner_detail(snap: Snapshot, drive: DriveInput, now_s: float) -> str:
-        state = snap.state
-        if drive.arm_pending(now_s) and state in (SafetyState.DISARMED, SafetyState.STOPPED):
+        """Only what is known: the robot's state needs live telemetry; the arming hint only when arming would work."""
+        state, refusal = snap.state, snap.arm_refusal
+        if snap.link.lost is not None:
+            return "link lost, robot state unknown"
+        if refusal is None and drive.arm_pending(now_s) and state in (SafetyState.DISARMED, SafetyState.STOPPED):
             return "press ENTER now to arm"
+        arming = f"cannot arm: {refusal}" if refusal is not None else \
+            ("re-arm: a, enter" if state is SafetyState.STOPPED else "arm: a, enter")
         if state is SafetyState.DISARMED:
-            return "no motion · arm: a, enter"
+            return f"no motion commanded · {arming}"
         if state is SafetyState.STOPPED:
-            return "at rest · re-arm: a, enter"
+            return f"{_wheels_word(snap)} · {arming}"
         if state is SafetyState.STOPPING:
             return "ramping down · x: faster"
         hold = drive.hold_left_s(now_s)

@@ -41,6 +41,15 @@ def _col(value: float, lo: float, hi: float, width: int) -> int:
     return min(max(round((value - lo) / (hi - lo) * (width - 1)), 0), width - 1)
 
 
+def _measured_style(style: Style, stale_s: int | None) -> Style:
+    """A measured value's style: dimmed while it is stale (no telemetry since `stale_s` seconds)."""
+    return style if stale_s is None else style + Style(dim=True)
+
+
+def _age(stale_s: int | None, value: float | None) -> str:
+    return "" if stale_s is None or value is None else f" ({stale_s} s old)"
+
+
 class Panel(Widget):
     """A widget that repaints only when its displayed values change.
 
@@ -213,15 +222,17 @@ class AxisGauge(Panel):
         self.digits = digits
 
     def show(self, req: float, target: float, out: float, meas: float | None, bound_lo: float,
-             bound_hi: float) -> None:
+             bound_hi: float, stale_s: int | None = None) -> None:
+        """`stale_s`: the measured value is that many seconds old (the link is lost): dimmed, with its age."""
         d = self.digits
         self._update((round(req, d), round(target, d), round(out, d), None if meas is None else round(meas, d),
-                      round(bound_lo, d), round(bound_hi, d)))
+                      round(bound_lo, d), round(bound_hi, d), stale_s))
 
     def paint(self, width: int, height: int) -> Rows:
         if self._shown is None:
             return Rows()
-        req, target, out, meas, bound_lo, bound_hi = self._shown
+        req, target, out, meas, bound_lo, bound_hi, stale_s = self._shown
+        meas_style = _measured_style(self.style_of("gauge--meas"), stale_s)
         d, width = self.digits, max(width, 10)
         lo, hi = self.scale_lo, self.scale_hi
         text = Rows()
@@ -231,7 +242,7 @@ class AxisGauge(Panel):
         if abs(target - req) > 10 ** -d / 2:
             text.append("  ▽ target " if wide else " ▽"), text.append(signed(target, d), self.style_of("gauge--target"))
         text.append("  █ out " if wide else " █"), text.append(signed(out, d), self.style_of("gauge--out"))
-        text.append("  ▲ meas " if wide else " ▲"), text.append(signed(meas, d), self.style_of("gauge--meas"))
+        text.append("  ▲ meas " if wide else " ▲"), text.append(signed(meas, d) + _age(stale_s, meas), meas_style)
         text.append("\n")
 
         markers = [" "] * width
@@ -266,7 +277,7 @@ class AxisGauge(Panel):
         _put(labels, _beside(min(c_hi, width - len(hi_text)), len(hi_text), c_meas, width), hi_text)
         _put(labels, zero, "0")
         if c_meas is not None:
-            labels[c_meas], label_styles[c_meas] = "▲", self.style_of("gauge--meas")
+            labels[c_meas], label_styles[c_meas] = "▲", meas_style
         _append_cells(text, labels, label_styles)
         return text
 
@@ -307,19 +318,20 @@ class WheelPanel(Panel):
         full_scale = self.bound_radps * self.per_radps      # the firmware value at the wheel-rate limit
         self.unit_digits = 3 if full_scale < 10.0 else 1 if full_scale < 1000.0 else 0
 
-    def show(self, snap: Snapshot) -> None:
+    def show(self, snap: Snapshot, stale_s: int | None = None) -> None:
         s = snap.shaped
         self._update((
             round(s.left_radps, 2), round(s.right_radps, 2), round(snap.left_cmd, self.unit_digits),
             round(snap.right_cmd, self.unit_digits),
             None if snap.left_meas_radps is None else round(snap.left_meas_radps, 1),
-            None if snap.right_meas_radps is None else round(snap.right_meas_radps, 1),
+            None if snap.right_meas_radps is None else round(snap.right_meas_radps, 1), stale_s,
         ))
 
     def paint(self, width: int, height: int) -> Rows:
         if self._shown is None:
             return Rows()
-        left, right, left_cmd, right_cmd, left_meas, right_meas = self._shown
+        left, right, left_cmd, right_cmd, left_meas, right_meas, stale_s = self._shown
+        meas_style = _measured_style(self.style_of("wheel--meas"), stale_s)
         width = max(width, 20)
         text = Rows()
         bound = self.bound_radps
@@ -333,13 +345,14 @@ class WheelPanel(Panel):
             if width >= 64:
                 text.append(f"{name} ", "bold")
                 text.append(f"cmd {signed(radps)} rad/s ({wire:+.{u}f} {self.suffix})  ", self.style_of("wheel--cmd"))
-                text.append(f"meas {signed(meas, 1)} rad/s ({meas_unit} {self.suffix})", self.style_of("wheel--meas"))
+                text.append(f"meas {signed(meas, 1)} rad/s ({meas_unit} {self.suffix}){_age(stale_s, meas)}",
+                            meas_style)
             else:
                 text.append(f"{name[0].upper()} ", "bold")
                 text.append(f"▆{signed(radps, 1)} ", self.style_of("wheel--cmd"))
-                text.append(f"▲{signed(meas, 1)} rad/s ", self.style_of("wheel--meas"))
+                text.append(f"▲{signed(meas, 1)} rad/s ", meas_style)
                 text.append(f"▆{wire:+.{u}f} ", self.style_of("wheel--cmd"))
-                text.append(f"▲{meas_unit} {self.suffix}", self.style_of("wheel--meas"))
+                text.append(f"▲{meas_unit} {self.suffix}{_age(stale_s, meas)}", meas_style)
             if saturated:
                 text.append("  AT BOUND", self.style_of("wheel--sat"))
             text.append("\n")
@@ -348,7 +361,7 @@ class WheelPanel(Panel):
             cells, styles = [], []
             for c in range(width):
                 if c == c_meas:
-                    cells.append("▲"), styles.append(self.style_of("wheel--meas"))
+                    cells.append("▲"), styles.append(meas_style)
                 elif c in (c_lo, c_hi):
                     cells.append("┃"), styles.append(self.style_of("wheel--bound"))
                 elif c < c_lo or c > c_hi:

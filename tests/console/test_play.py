@@ -104,5 +104,6 @@ def test_ctrl_c_sigterm_and_sighup_give_a_controlled_stop_and_keep_the_recording
     stopping = rec["state"] == "stopping"
     period = json.loads(sidecar_path(record).read_text(encoding="utf-8"))["loop"]["period_s"]
     steps = numpy.round(numpy.diff(rec["t_s"]) / period) * period     # the shaper steps by whole scheduled periods
-    decel = -numpy.diff(rec["v_mps"])[stopping[1:]] / steps[stopping[1:]]
+    rows = stopping[1:] & (steps > 0)        # a cycle started over half a period late rounds to no step: skipped
+    decel = -numpy.diff(rec["v_mps"])[rows] / steps[rows]
     assert 0.95 <= decel.max() <= 1.0 + 1e-6            # wren's decel_mps2 (1.0): a controlled stop, not a fast one

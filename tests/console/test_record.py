@@ -29,11 +29,13 @@ WREN = ROOT / "profiles" / "wren.toml"
 HEADER = ("t_s,v_req_mps,omega_req_radps,v_mps,omega_radps,left_cmd_radps,right_cmd_radps,left_meas_radps,"
           "right_meas_radps,state")
 POSE = ",x_m,y_m,heading_rad"
+FLAGS = ",flags"          # issue 9, finding 6: every telemetry flag recorded
 
 
 def test_header_on_hardware_and_on_the_simulated_robot(tmp_path: Path) -> None:
     profile = load_profile(WREN)
-    for url, expected in (("/dev/ttyACM0", HEADER), ("socket://127.0.0.1:9", HEADER), ("sim", HEADER + POSE)):
+    for url, expected in (("/dev/ttyACM0", HEADER + FLAGS), ("socket://127.0.0.1:9", HEADER + FLAGS),
+                          ("sim", HEADER + POSE + FLAGS)):
         path = tmp_path / f"{len(expected)}-{url.replace('/', '_').replace(':', '_')}.csv"
         Recorder(path, profile, url).close()
         assert path.read_text(encoding="utf-8").splitlines() == [expected]
@@ -48,12 +50,12 @@ def test_rows_read_back_exactly(tmp_path: Path) -> None:
     for k in range(500):
         values = [float(x) for x in rng.normal(size=12)]
         meas = (None, None) if k % 7 == 0 else (values[7], values[8])   # no telemetry yet -> empty cells
-        row = (k * 0.01, *values[:4], values[4], values[5], *meas, "armed", *values[9:])
+        row = (k * 0.01, *values[:4], values[4], values[5], *meas, "armed", *values[9:], k % 128)
         rows.append(row)
         recorder.put(row)
     recorder.close()
     columns = read_csv(path)
-    assert list(columns) == (HEADER + POSE).split(",")
+    assert list(columns) == (HEADER + POSE + FLAGS).split(",")
     for i, name in enumerate(columns):
         if name == "state":
             assert set(columns[name]) == {"armed"}
@@ -69,7 +71,7 @@ def test_sidecar_has_profile_versions_link_start_time_and_loop_statistics(tmp_pa
     recorder = Recorder(path, profile, "/dev/ttyACM0")
     after = datetime.now(timezone.utc)
     for k in range(10):
-        recorder.put((k * 0.01, 0.0, 0.0, 0.0, 0.0, 0.0, 0.0, 0.0, 0.0, "disarmed"))
+        recorder.put((k * 0.01, 0.0, 0.0, 0.0, 0.0, 0.0, 0.0, 0.0, 0.0, "disarmed", 0))
     stats = LoopStats(period_s=0.01, cycles=10, overruns=1, period_error_p50_s=1e-5, period_error_p99_s=2e-4,
                       period_error_max_s=3e-4, work_p99_s=1e-4)
     side = recorder.close(stats)
@@ -97,7 +99,7 @@ def test_a_stalled_disk_drops_rows_and_counts_them(tmp_path: Path) -> None:
     recorder = Recorder(fifo, load_profile(WREN), "/dev/ttyACM0", queue_rows=64)
     n = 50_000
     for k in range(n):
-        recorder.put((k * 0.001, 0.1, 0.2, 0.3, 0.4, 0.5, 0.6, 0.7, 0.8, "armed"))
+        recorder.put((k * 0.001, 0.1, 0.2, 0.3, 0.4, 0.5, 0.6, 0.7, 0.8, "armed", 0))
     assert recorder.dropped > 0
     closer = threading.Thread(target=recorder.close)
     closer.start()
@@ -114,7 +116,7 @@ def test_a_stalled_disk_drops_rows_and_counts_them(tmp_path: Path) -> None:
     closer.join()
     os.close(reader)
     lines = received.decode().splitlines()
-    assert lines[0] == HEADER
+    assert lines[0] == HEADER + FLAGS
     meta = json.loads(sidecar_path(fifo).read_text(encoding="utf-8"))
     assert len(lines) - 1 == recorder.written == meta["rows_written"]
     assert recorder.written + recorder.dropped == n
@@ -130,7 +132,7 @@ CHILD = textwrap.dedent("""
     k = 0
     while True:
         # t_s is CLOCK_MONOTONIC, shared by every process on the machine: the parent compares it with its kill time
-        recorder.put((time.monotonic(), 0.1 * k, 0.2, 0.3, 0.4, 0.5, 0.6, 0.7, 0.8, "armed", 1.0, 2.0, 3.0))
+        recorder.put((time.monotonic(), 0.1 * k, 0.2, 0.3, 0.4, 0.5, 0.6, 0.7, 0.8, "armed", 1.0, 2.0, 3.0, 0))
         k += 1
         time.sleep(0.001)
 """)
@@ -172,13 +174,13 @@ def test_a_full_disk_stops_recording_keeps_whole_rows_and_the_sidecar_says_why(t
     recorder = Recorder(path, load_profile(WREN), "/dev/ttyACM0", flush_s=0.01)
     recorder._file = DiskFillsUp(recorder._file, room=1000)     # the header is already written
     for k in range(200):
-        recorder.put((k * 0.01, 0.1, 0.2, 0.3, 0.4, 0.5, 0.6, 0.7, 0.8, "armed"))
+        recorder.put((k * 0.01, 0.1, 0.2, 0.3, 0.4, 0.5, 0.6, 0.7, 0.8, "armed", 0))
         if k % 20 == 0:
             time.sleep(0.03)            # let the writer drain in several batches: some fit, then the disk is full
     recorder.close()
     lines = path.read_text(encoding="utf-8").splitlines(keepends=True)
-    assert lines[0] == HEADER + "\n" and len(lines) > 1
-    assert all(line.endswith("\n") and line.count(",") == HEADER.count(",") for line in lines), lines[-1]
+    assert lines[0] == HEADER + FLAGS + "\n" and len(lines) > 1
+    assert all(line.endswith("\n") and line.count(",") == (HEADER + FLAGS).count(",") for line in lines), lines[-1]
     assert len(lines) - 1 == recorder.written < 200
     meta = json.loads(sidecar_path(path).read_text(encoding="utf-8"))
     assert meta["write_error"] == (f"recording stopped after {recorder.written} rows (No space left on device); "
@@ -195,7 +197,7 @@ def test_when_even_the_sidecar_cannot_be_written_the_recorder_says_so_and_leaves
 
     path = tmp_path / "full.csv"
     recorder = Recorder(path, load_profile(WREN), "/dev/ttyACM0")
-    recorder.put((0.01, 0.1, 0.2, 0.3, 0.4, 0.5, 0.6, 0.7, 0.8, "armed"))
+    recorder.put((0.01, 0.1, 0.2, 0.3, 0.4, 0.5, 0.6, 0.7, 0.8, "armed", 0))
     real_fdopen = os.fdopen
     monkeypatch.setattr(files.os, "fdopen", lambda *a, **k: DiskFillsUp(real_fdopen(*a, **k), room=0))
     recorder.close()

@@ -6,6 +6,7 @@ test only decides when loop time passes (`rig.advance`).
 
 from __future__ import annotations
 
+import dataclasses
 import io
 import math
 
@@ -252,6 +253,34 @@ async def test_link_loss_is_shown_and_stops_the_robot(latched_rig: Rig) -> None:
         await pilot.press("a", "enter")                    # and it cannot be armed on a dead link
         rig.advance(0.1)
         assert rig.snap.state is SafetyState.STOPPED
+        await pilot.pause()
+        banner = banner_text(rig.app)                      # issue 9, finding 5: only what is known
+        assert "link lost, robot state unknown" in banner
+        assert "at rest" not in banner and "re-arm" not in banner
+        wheels = "\n".join(rig.app.drive_screen.wheel_panel.text_lines())
+        assert "s old)" in wheels                          # the last measured values, with their age
+
+
+async def test_a_fault_with_turning_wheels_is_not_at_rest_and_flags_are_named(latched_rig: Rig) -> None:
+    """Issue 9, finding 5: a robot reporting FAULT while its wheels still turn is never shown "at rest", and the
+    arming refusal names the flag instead of a number."""
+    rig = latched_rig
+    async with rig.app.run_test(size=SIZE) as pilot:
+        await arm(rig, pilot)
+        await pilot.press("6")
+        rig.advance(2.0)
+        rig.sim.set_fault(True)
+        rig.advance(0.2)
+        await pilot.pause()
+        assert rig.snap.state is SafetyState.STOPPED and rig.snap.cause is StopCause.FAULT
+        banner = banner_text(rig.app)
+        assert "cannot arm: the robot reports FAULT" in banner and "re-arm" not in banner
+        assert "FAULT" in "\n".join(rig.app.drive_screen.link_panel.text_lines())
+        coasting = dataclasses.replace(rig.snap, left_meas_radps=6.0, right_meas_radps=5.5)   # fresh telemetry
+        detail = DriveScreen._banner_detail(coasting, rig.app.drive, rig.clock.now())
+        assert "wheels still turning" in detail and "at rest" not in detail
+        at_rest = dataclasses.replace(rig.snap, left_meas_radps=0.0, right_meas_radps=0.0)
+        assert DriveScreen._banner_detail(at_rest, rig.app.drive, rig.clock.now()).startswith("at rest")
 
 
 async def test_a_silent_ui_stops_the_robot(latched_rig: Rig) -> None:
