@@ -97,10 +97,21 @@ class _Terminated(Exception):
 ENDING_SIGNALS = (signal.SIGTERM, signal.SIGHUP)
 
 
+class _Endings:
+    """Ending signals seen by the child. Only the first one, and only while serving, interrupts anything (it ends
+    `serve`); later ones, or any during the stop, only make the stop harsher. The child never dies of a signal it
+    can catch before the robot is at rest and the recording closed: a terminal going away sends SIGHUP to both
+    processes and the parent may follow with SIGTERM, and either must not cut the stop short."""
+
+    count = 0
+    serving = False
+
+
 def _on_ending_signal(signum: int, frame: object) -> None:
-    for ending in ENDING_SIGNALS:
-        signal.signal(ending, signal.SIG_DFL)        # a second one ends the child at once
-    raise _Terminated
+    _Endings.count += 1
+    if _Endings.count == 1 and _Endings.serving:
+        _Endings.serving = False
+        raise _Terminated
 
 
 def _has_room(conn: Connection) -> bool:
@@ -167,8 +178,11 @@ def _come_to_rest(loop: ControlLoop, kind: StopKind, cause: StopCause) -> None:
     for step in steps:
         loop.stop(step, cause)
         deadline = time.monotonic() + _stop_allowance_s(loop, step)
+        endings = _Endings.count
         time.sleep(2.0 / loop.profile.link.rate_hz)         # let the loop take the stop before judging the state
         while not _at_rest(loop) and time.monotonic() < deadline:
+            if _Endings.count > endings and step is not StopKind.IMMEDIATE:
+                break                                        # another ending signal: the harsher stop now
             loop.ui_alive()
             time.sleep(REST_POLL_S)
         if _at_rest(loop):
@@ -239,13 +253,14 @@ def _child_main(conn: Connection, profile: Profile, options: _Options) -> None:
     child = _Child(conn, loop, options)
     asked = False
     try:
-        conn.send(("ready", loop.snapshot()))
-        asked = child.serve()
+        _Endings.serving = _Endings.count == 0
+        if _Endings.serving:
+            conn.send(("ready", loop.snapshot()))
+            asked = child.serve()
     except _Terminated:
         pass
     finally:
-        for ending in ENDING_SIGNALS:
-            signal.signal(ending, signal.SIG_DFL)
+        _Endings.serving = False
         if child.started:
             if asked:
                 _come_to_rest(loop, StopKind.CONTROLLED, StopCause.PROGRAM_END)
@@ -286,6 +301,7 @@ class LoopProcess:
         self._trace = trace
         self._final: tuple[LoopStats, LinkStats] | None = None
         self._send_lock = threading.Lock()
+        self._close_lock = threading.Lock()     # a second close() (signal thread, then the verb) waits for the first
         self._started = False
         self._closed = False
         options = _Options(self.url, None if record_path is None else str(record_path), operator_timeout_s,
@@ -372,14 +388,15 @@ class LoopProcess:
 
     def close(self, timeout_s: float = CLOSE_TIMEOUT_S) -> None:
         """Controlled stop, recording closed, child joined; a child that does not finish in time is terminated."""
-        if self._closed:
-            return
-        self._closed = True
-        self._send("close")
-        self._reader.join(timeout_s)
-        self._end_process()
-        self._reader.join(KILL_AFTER_S)
-        self._conn.close()
+        with self._close_lock:
+            if self._closed:
+                return
+            self._closed = True
+            self._send("close")
+            self._reader.join(timeout_s)
+            self._end_process()
+            self._reader.join(KILL_AFTER_S)
+            self._conn.close()
 
     def _end_process(self) -> None:
         process = self._process

@@ -19,6 +19,7 @@ from textual.screen import Screen
 from console.core.safety import SafetyState, StopCause
 from console.ui.driving import DriveInput, DriveMode, DriveSettings
 from console.ui.screens import CautionScreen, HelpScreen
+from console.ui.signals import exit_on_ending_signals
 from console.ui.trace import KeyWireTrace
 from console.ui.widgets import (
     AxisGauge, EventLog, HintBar, KeyCard, LimitPanel, LinkPanel, SafetyBanner, TitleBar, TopView, TracePlot,
@@ -238,7 +239,8 @@ class DriveApp(App[int]):
 
     def __init__(self, loop: ControlLoop | LoopProcess, profile: Profile, clock: Clock, settings: DriveSettings, *,
                  real_link: bool, render_hz: float = RENDER_HZ, trace: KeyWireTrace | None = None,
-                 on_ready: Callable[[], None] | None = None) -> None:
+                 on_ready: Callable[[], None] | None = None,
+                 on_ending_signal: Callable[[int], None] | None = None) -> None:
         super().__init__()
         self.loop = loop
         self.profile = profile
@@ -248,8 +250,13 @@ class DriveApp(App[int]):
         self.render_hz = min(render_hz, RENDER_HZ_MAX)
         self.trace = trace
         self.on_ready = on_ready
+        self.on_ending_signal = on_ending_signal
         self.confirmed = not real_link
         self.last_snapshot: Snapshot | None = None
+        self.ended_by: int | None = None       # SIGTERM / SIGHUP (console.ui.signals): the verb stops the robot
+
+    def on_mount(self) -> None:
+        exit_on_ending_signals(self, self.on_ending_signal)
 
     def get_default_screen(self) -> Screen[None]:
         return DriveScreen(self.profile)

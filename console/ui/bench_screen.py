@@ -7,8 +7,6 @@ controlled stop, x a fast stop, q stops and quits; the recording is kept in ever
 
 from __future__ import annotations
 
-import asyncio
-import signal
 from typing import Any
 
 from textual.app import App, ComposeResult
@@ -18,10 +16,10 @@ from textual.widgets import ProgressBar, Static
 
 from console.bench.run import BenchResult, BenchRun
 from console.core.safety import StopCause
+from console.ui.signals import exit_on_ending_signals
 from console.ui.widgets import EventLog, SafetyBanner, TracePlot
 from shaping.shaper import StopKind
 
-ENDING_SIGNALS = (signal.SIGTERM, signal.SIGHUP)
 RENDER_HZ = 20.0
 UI_TIMEOUT_S = 0.5
 """The loop brings the robot to a fast stop when the screen has not refreshed for this long (a stalled UI)."""
@@ -44,12 +42,7 @@ class BenchApp(App[int]):
         self.run_ = run
         self.result: BenchResult | None = None
         self._events_seen = 0
-        self.ended_by: int | None = None
-
-    def _end_by_signal(self, signum: int) -> None:
-        """SIGTERM / SIGHUP: leave the app with 128 + the signal; `finish()` then stops the robot under control."""
-        self.ended_by = signum
-        self.exit(128 + signum)
+        self.ended_by: int | None = None       # SIGTERM / SIGHUP (console.ui.signals): finish() stops the robot
 
     def compose(self) -> ComposeResult:
         env = self.run_.profile.envelope
@@ -64,9 +57,7 @@ class BenchApp(App[int]):
                          "safety function: keep the hardware stop within reach", id="keys")
 
     def on_mount(self) -> None:
-        loop = asyncio.get_running_loop()      # handlers on the app's own event loop: never inside a held lock
-        for signum in ENDING_SIGNALS:
-            loop.add_signal_handler(signum, self._end_by_signal, signum)
+        exit_on_ending_signals(self)
         self.run_.start()
         self.set_interval(1.0 / RENDER_HZ, self.tick)
 

@@ -12,7 +12,9 @@ import argparse
 import dataclasses
 import gc
 import math
+import os
 import sys
+import threading
 import time
 from typing import TYPE_CHECKING
 
@@ -38,6 +40,8 @@ UI_TIMEOUT_S = 0.75
 blocks the app for longer than this is not showing the operator the robot any more."""
 UI_SWITCH_INTERVAL_S = 0.0001
 SETTLE_TIMEOUT_S = 10.0
+SIGNAL_EXIT_GRACE_S = 5.0
+"""After SIGTERM / SIGHUP, with the robot at rest and the recording closed, the UI gets this long to exit by itself."""
 DEADMAN_RANGE_S = (0.3, 5.0)
 
 
@@ -103,9 +107,9 @@ def open_link(profile: Profile) -> tuple[Transport, object | None]:
     return open_url(profile.link.url, profile.link.baud), None
 
 
-def _bring_to_rest(loop: LoopProcess) -> None:
+def _bring_to_rest(loop: LoopProcess, cause: StopCause = StopCause.PROGRAM_END) -> None:
     """Controlled stop, then keep the loop (and its UI heartbeat) going until the robot is at rest."""
-    loop.stop(StopKind.CONTROLLED, StopCause.PROGRAM_END)
+    loop.stop(StopKind.CONTROLLED, cause)
     deadline = time.monotonic() + SETTLE_TIMEOUT_S
     while time.monotonic() < deadline and loop.failure is None:
         loop.ui_alive()
@@ -139,20 +143,42 @@ def run(args: argparse.Namespace) -> int:
         sys.setswitchinterval(UI_SWITCH_INTERVAL_S)
         loop.start()
 
+    def stop_on_signal(signum: int) -> None:
+        """SIGTERM / SIGHUP: stop and close the loop from a thread of its own at once. The app is asked to exit
+        too, but with its terminal gone it may never get there; this thread then ends the process once the robot
+        is at rest and the recording closed."""
+        def shutdown() -> None:
+            _bring_to_rest(loop, StopCause.SIGNAL)
+            loop.close()
+            time.sleep(SIGNAL_EXIT_GRACE_S)
+            os._exit(128 + signum)
+
+        threading.Thread(target=shutdown, name="diffdeck-signal-stop", daemon=True).start()
+
     app = DriveApp(loop, profile, WallClock(), settings, real_link=profile.link.url != "sim", trace=trace,
-                   on_ready=start_loop)
+                   on_ready=start_loop, on_ending_signal=stop_on_signal)
     try:
         app.run()
     finally:
         _bring_to_rest(loop)
         loop.close()                      # controlled stop; the child closes the recording (CSV + sidecar)
         if loop.record_path is not None:
-            print(f"diffdeck drive: recorded {loop.record_path}", file=sys.stderr)
+            _say(f"diffdeck drive: recorded {loop.record_path}")
         if trace is not None:
             trace.save({"loop": dataclasses.asdict(loop.stats()), "link": dataclasses.asdict(loop.link_stats()),
                         "events": [(e.t_s, e.text, e.kind) for e in loop.snapshot().events],
                         "loop_pid": loop.pid})
+    if app.ended_by is not None:
+        return 128 + app.ended_by         # SIGTERM / SIGHUP: the robot was brought to rest all the same
     if loop.failure is not None:
-        print(f"diffdeck drive: the control loop failed: {loop.failure}", file=sys.stderr)
+        _say(f"diffdeck drive: the control loop failed: {loop.failure}")
         return 1
     return 0
+
+
+def _say(line: str) -> None:
+    """One line on stderr; a terminal that went away (SIGHUP) must not turn the shutdown into a traceback."""
+    try:
+        print(line, file=sys.stderr)
+    except OSError:
+        pass

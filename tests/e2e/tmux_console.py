@@ -33,7 +33,7 @@ class TmuxConsole:
     """
 
     def __init__(self, drive_args: list[str], *, size: tuple[int, int] = (120, 40),
-                 env: dict[str, str] | None = None) -> None:
+                 env: dict[str, str] | None = None, cwd: Path = ROOT) -> None:
         assert TMUX is not None
         self.name = f"diffdeck-test-{os.getpid()}-{time.monotonic_ns() % 10**9}"
         self.tmux = [TMUX, "-L", self.name, "-f", "/dev/null"]
@@ -43,7 +43,7 @@ class TmuxConsole:
         self.size = size
         width, height = size
         subprocess.run([*self.tmux, "new-session", "-d", "-s", self.name, "-x", str(width), "-y", str(height),
-                        "-c", str(ROOT), f"{exports}exec {command}"], check=True)
+                        "-c", str(cwd), f"{exports}exec {command}"], check=True)
 
     def started(self, pattern: str, timeout_s: float = 30.0) -> str:
         """Wait for the first screen, then nudge the window size once and back.
