@@ -72,6 +72,7 @@ class DriveScreen(Screen[None]):
         Binding("left_square_bracket", "steps(0.5)", "finer steps", show=False),
         Binding("right_square_bracket", "steps(2.0)", "coarser steps", show=False),
         Binding("m", "toggle_mode", "hold/latched", show=False),
+        Binding("k", "keepalive", "still here", show=False),
         Binding("question_mark,f1", "help", "help", show=False),
     ]
 
@@ -185,7 +186,8 @@ class DriveScreen(Screen[None]):
         hold = drive.hold_left_s(now_s)
         if drive.mode is DriveMode.HOLD:
             return "HOLD: keep a key down" if hold is None else f"HOLD: lapses in {hold:.1f} s"
-        return "LATCHED: request stays"
+        left = drive.keepalive_left_s(now_s)
+        return f"LATCHED: request stays · k within {max(left, 0.0):.0f} s or it stops"
 
     def note(self, t_s: float, text: str) -> None:
         if self.ready:
@@ -218,6 +220,9 @@ class DriveScreen(Screen[None]):
 
     def action_toggle_mode(self) -> None:
         self.console.toggle_mode()
+
+    def action_keepalive(self) -> None:
+        self.console.keepalive()
 
     def action_help(self) -> None:
         self.app.push_screen(HelpScreen(self.console.drive.deadman_s))
@@ -291,6 +296,8 @@ class DriveApp(App[int]):
     def tick(self) -> None:
         self.loop.ui_alive()
         now = self.clock.now()
+        if self.drive.mode is DriveMode.HOLD:
+            self.loop.operator_alive()   # hold mode's own deadman zeroes an unattended request: no keep-alive asked
         if self.drive.expire(now):
             self.loop.request(0.0, 0.0)
             self._note(f"hold released: no driving key for {self.drive.deadman_s:.2f} s, request to zero")
@@ -307,6 +314,7 @@ class DriveApp(App[int]):
 
     def _key(self, name: str) -> None:
         self.loop.operator_alive()
+        self.drive.present(self.clock.now())
         if self.trace is not None:
             self.trace.key(name)
 
@@ -355,6 +363,9 @@ class DriveApp(App[int]):
             self.loop.request(*self.drive.request)
         else:
             self.drive.refresh(now)
+
+    def keepalive(self) -> None:
+        self._key("keep-alive")
 
     def scale_steps(self, factor: float) -> None:
         self._key("steps")

@@ -6,7 +6,9 @@ the loop clock's time; it answers with the request to send).
 - Hold mode: every driving key refreshes the request; with no driving key for `deadman_s` it falls to zero.
   Terminals send key presses and auto-repeats but (mostly) no releases, so "held" means "repeats keep arriving".
   The deadman time must be longer than a typical auto-repeat delay (~0.5 s before the first repeat).
-- Latched mode: the request stays until changed.
+- Latched mode: the request stays until changed, as long as the operator shows presence: some key (k is the one
+  that changes nothing) at least every `keepalive_s`, or the loop brings the robot to a controlled stop (cause
+  deadman). Hold mode needs no keep-alive: its own deadman already zeroes an unattended request.
 - Arming is a two-key sequence: the arm key opens a short window, the confirm key inside it arms.
 """
 
@@ -28,6 +30,7 @@ class DriveSettings:
     speed_step_mps: float
     turn_step_radps: float
     deadman_s: float = 0.7
+    keepalive_s: float = 10.0
     arm_window_s: float = 2.0
     mode: DriveMode = DriveMode.HOLD
 
@@ -50,6 +53,8 @@ class DriveInput:
         self.speed_step_mps = settings.speed_step_mps
         self.turn_step_radps = settings.turn_step_radps
         self.deadman_s = settings.deadman_s
+        self.keepalive_s = settings.keepalive_s
+        self._present_s = 0.0
         self.arm_window_s = settings.arm_window_s
         self.mode = settings.mode
         self.v_mps = 0.0
@@ -117,6 +122,14 @@ class DriveInput:
         if self.mode is not DriveMode.HOLD or self._refreshed_s is None or self.request == (0.0, 0.0):
             return None
         return max(0.0, self.deadman_s - (now_s - self._refreshed_s))
+
+    def present(self, now_s: float) -> None:
+        """Any key: the operator is there (the loop gets the same news as its operator heartbeat)."""
+        self._present_s = now_s
+
+    def keepalive_left_s(self, now_s: float) -> float:
+        """Latched mode: time left before the loop stops the robot for operator silence."""
+        return self.keepalive_s - (now_s - self._present_s)
 
     def toggle_mode(self) -> DriveMode:
         self.mode = DriveMode.LATCHED if self.mode is DriveMode.HOLD else DriveMode.HOLD

@@ -34,6 +34,7 @@ HELP_GROUPS: tuple[tuple[str, tuple[tuple[str, str], ...]], ...] = (
     )),
     ("Modes and view", (
         ("m", "switch hold ↔ latched mode (the request goes to zero on every switch)"),
+        ("k", "still here: latched mode stops the robot (controlled) after the keep-alive time without a key"),
         ("? / f1", "this help; escape or ? closes it"),
     )),
 )
@@ -43,7 +44,8 @@ HELP_NOTES = (
     "events, so holding a key works through the terminal's auto-repeat; with no driving key for the deadman time "
     "({deadman:.2f} s, longer than a typical 0.5 s auto-repeat delay) the request falls to zero and the shaper "
     "brings the robot to rest. It stays armed.",
-    "Latched mode: the request stays until you change it or stop.",
+    "Latched mode: the request stays until you change it or stop, as long as some key (k changes nothing) comes "
+    "within the keep-alive time; the banner counts it down, and silence brings a controlled stop.",
     "The loop stops the robot by itself when the link or the telemetry goes quiet, the robot reports a watchdog trip "
     "or a fault, or this screen stops refreshing.",
     "A software stop is not an emergency stop. Keep the robot's hardware emergency stop within reach.",

@@ -144,7 +144,8 @@ class HintBar(Panel):
 
     HINTS = (
         ("space", "stop"), ("x", "fast stop"), ("a ⏎", "arm"), ("?", "help"), ("↑↓", "speed"), ("←→", "turn"),
-        ("1-9", "preset"), ("m", "hold/latch"), ("q", "quit"),
+        ("1-9", "preset"), ("m", "hold/latch"), ("k", "still here"),
+        ("q", "quit"),
     )
 
     def on_mount(self) -> None:
@@ -609,6 +610,7 @@ class KeyCard(Panel):
         ("0 / c / z", "speed 0 / turn 0 / all 0"),
         ("[ ]", "finer / coarser steps"),
         ("m", "hold ↔ latched"),
+        ("k", "still here (latched)"),
         ("? / F1", "all keys and cautions"),
     )
 

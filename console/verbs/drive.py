@@ -43,6 +43,7 @@ SETTLE_TIMEOUT_S = 10.0
 SIGNAL_EXIT_GRACE_S = 5.0
 """After SIGTERM / SIGHUP, with the robot at rest and the recording closed, the UI gets this long to exit by itself."""
 DEADMAN_RANGE_S = (0.3, 5.0)
+KEEPALIVE_RANGE_S = (2.0, 120.0)
 
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
@@ -58,6 +59,9 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--deadman-s", type=float, default=0.7, metavar="S",
                         help="hold mode: the request falls to zero this long after the last driving key "
                         "(default 0.7; keep it above the terminal's auto-repeat delay)")
+    parser.add_argument("--keepalive-s", type=float, default=10.0, metavar="S",
+                        help="latched mode: a key (k changes nothing) at least this often, else a controlled stop "
+                        "(default 10, allowed 2..120)")
     parser.add_argument("--rate-hz", type=float, metavar="HZ", help="command rate (default: the profile's rate_hz)")
     parser.add_argument("--record", action="store_true",
                         help="record the session to recordings/ (CSV + JSON sidecar)")
@@ -78,9 +82,12 @@ def settings_from(args: argparse.Namespace, profile: Profile) -> DriveSettings:
     if not (math.isfinite(args.deadman_s) and low <= args.deadman_s <= high):
         raise InputError("drive", "--deadman-s", args.deadman_s,
                          f"{low:g}..{high:g} s, above the terminal's auto-repeat delay (0.6-0.8 s is usual)")
+    low, high = KEEPALIVE_RANGE_S
+    if not (math.isfinite(args.keepalive_s) and low <= args.keepalive_s <= high):
+        raise InputError("drive", "--keepalive-s", args.keepalive_s, f"{low:g}..{high:g} s")
     return DriveSettings.for_envelope(
         profile.envelope, speed_step_mps=args.speed_step_mps, turn_step_radps=args.turn_step_radps,
-        deadman_s=args.deadman_s, mode=DriveMode(args.mode),
+        deadman_s=args.deadman_s, keepalive_s=args.keepalive_s, mode=DriveMode(args.mode),
     )
 
 
@@ -127,6 +134,7 @@ def run(args: argparse.Namespace) -> int:
     trace = KeyWireTrace.from_env()
     # start-up errors (bad URL, link lost on open, unwritable recording) are raised here, before any screen
     loop = LoopProcess(profile, url=profile.link.url, ui_timeout_s=UI_TIMEOUT_S, trace=trace,
+                       operator_timeout_s=settings.keepalive_s,
                        record_path=default_path(profile) if args.record else None,
                        snapshot_hz=RENDER_HZ)    # one snapshot per screen refresh: more would be pickled for nothing
 

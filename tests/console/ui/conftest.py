@@ -45,13 +45,14 @@ class Rig:
 
 
 def make_rig(*, profile_name: str = "wren.toml", real_link: bool = False, mode: DriveMode = DriveMode.HOLD,
-             deadman_s: float = 0.7) -> Rig:
+             deadman_s: float = 0.7, keepalive_s: float = 10.0) -> Rig:
     profile = load_profile(PROFILES / profile_name)
     console_end, robot_end = memory_pair()
     sim = SimRobot(profile, robot_end)
     clock = VirtualClock()
-    loop = ControlLoop(profile, console_end, clock, sim=sim, ui_timeout_s=UI_TIMEOUT_S, url="sim")
-    settings = DriveSettings.for_envelope(profile.envelope, mode=mode, deadman_s=deadman_s)
+    loop = ControlLoop(profile, console_end, clock, sim=sim, ui_timeout_s=UI_TIMEOUT_S, url="sim",
+                       operator_timeout_s=keepalive_s)
+    settings = DriveSettings.for_envelope(profile.envelope, mode=mode, deadman_s=deadman_s, keepalive_s=keepalive_s)
     # the refresh timer is slowed right down: the test's own ticks (in virtual time) are the ones that count
     app = DriveApp(loop, profile, clock, settings, real_link=real_link, render_hz=1.0)
     return Rig(profile, clock, loop, sim, robot_end, app)

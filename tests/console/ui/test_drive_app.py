@@ -336,3 +336,22 @@ async def test_real_link_asks_for_the_cautions_first() -> None:
         await pilot.press("a", "enter")
         rig.advance(0.04)
         assert rig.snap.state is SafetyState.ARMED
+
+
+async def test_latched_mode_needs_a_keepalive_and_counts_it_down() -> None:
+    """Issue 9, finding 7: operator silence in latched mode is a controlled stop (cause deadman) after the keep-alive
+    time, with the time left on the banner; k (or any key) renews it."""
+    rig = make_rig(mode=DriveMode.LATCHED, keepalive_s=3.0)
+    async with rig.app.run_test(size=SIZE) as pilot:
+        await arm(rig, pilot)
+        await pilot.press("3")
+        rig.advance(2.0)
+        await pilot.pause()
+        assert "k within 1 s" in banner_text(rig.app)
+        await pilot.press("k")
+        rig.advance(2.5)
+        assert rig.snap.state is SafetyState.ARMED and rig.snap.shaped.v_mps > 0.0     # renewed by k
+        rig.advance(1.0)
+        assert rig.snap.state in (SafetyState.STOPPING, SafetyState.STOPPED)
+        assert rig.snap.cause is StopCause.DEADMAN
+        assert any("stop (deadman)" in e.text and "controlled" in e.text for e in rig.snap.events)
