@@ -28,6 +28,7 @@ import select
 import signal
 import threading
 import time
+from collections.abc import Callable
 from dataclasses import dataclass, replace
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
@@ -37,8 +38,8 @@ from console.core.link import LinkStats
 from console.core.safety import SafetyState, StopCause
 from console.core.step import Event, LoopStats, Snapshot
 from console.loop import ControlLoop, WallClock, request_realtime
-from shaping.ramp import plan_ramp
-from shaping.shaper import StopKind, speed_limits, turn_limits
+from console.session import bring_to_rest
+from shaping.shaper import StopKind
 
 if TYPE_CHECKING:
     from multiprocessing.connection import Connection
@@ -54,9 +55,6 @@ START_TIMEOUT_S = 60.0
 CLOSE_TIMEOUT_S = 30.0
 """`close()` waits this long for the child's controlled shutdown before it terminates the child."""
 KILL_AFTER_S = 5.0
-STOP_MARGIN_S = 1.0
-"""Added to the time a stop should take (its ramps from the current state) before the child escalates it."""
-REST_POLL_S = 0.01
 ENDED = "loop process ended"
 
 
@@ -125,16 +123,10 @@ def _build(profile: Profile, options: _Options) -> tuple[ControlLoop, Any, Any]:
     """(loop, recorder or None, wire trace or None); raises InputError / LinkLost with the link closed again."""
     from console.record import Recorder
 
-    sim = None
-    if profile.link.url == "sim":
-        from console.sim.firmware import SimRobot
+    from console.links import open_link
 
-        sim = SimRobot(profile)                      # keeps the console end of an in-memory pair for us
-        transport = sim.console_end
-    else:
-        from console.transport import open_url
-
-        transport = open_url(profile.link.url, profile.link.baud)
+    link = open_link(profile.link.url, profile)
+    sim, transport = link.sim, link.transport
     trace = None
     if options.trace_wire:
         from console.ui.trace import KeyWireTrace
@@ -155,38 +147,9 @@ def _build(profile: Profile, options: _Options) -> tuple[ControlLoop, Any, Any]:
     return loop, recorder, trace
 
 
-def _stop_allowance_s(loop: ControlLoop, kind: StopKind) -> float:
-    """How long the stop should take from the current shaped state (both axes' ramps to zero), plus a margin."""
-    shaped, limits = loop.snapshot().shaped, loop.profile.limits
-    stop = kind if kind is StopKind.FAST else None
-    speed = plan_ramp(shaped.v_mps, shaped.a_mps2, 0.0, speed_limits(limits, stop)).duration
-    turn = plan_ramp(shaped.omega_radps, shaped.alpha_radps2, 0.0, turn_limits(limits, stop)).duration
-    return max(speed, turn) + STOP_MARGIN_S
-
-
-def _at_rest(loop: ControlLoop) -> bool:
-    return loop.failure is not None or loop.snapshot().state in (SafetyState.DISARMED, SafetyState.STOPPED)
-
-
-def _come_to_rest(loop: ControlLoop, kind: StopKind, cause: StopCause) -> None:
-    """Stop with `kind`; escalate to an immediate stop if the robot is not at rest in the time the stop should take.
-
-    The child beats the UI heartbeat itself meanwhile: nobody else does any more, and a UI-stall stop must not
-    interrupt the stop asked for here.
-    """
-    steps = (kind,) if kind is StopKind.IMMEDIATE else (kind, StopKind.IMMEDIATE)
-    for step in steps:
-        loop.stop(step, cause)
-        deadline = time.monotonic() + _stop_allowance_s(loop, step)
-        endings = _Endings.count
-        time.sleep(2.0 / loop.profile.link.rate_hz)         # let the loop take the stop before judging the state
-        while not _at_rest(loop) and time.monotonic() < deadline:
-            if _Endings.count > endings and step is not StopKind.IMMEDIATE:
-                break                                        # another ending signal: the harsher stop now
-            loop.ui_alive()
-            time.sleep(REST_POLL_S)
-        if _at_rest(loop):
-            return
+def _harsher_asked(since: int) -> Callable[[], bool]:
+    """True once another ending signal came after `since` of them (the stop is then escalated)."""
+    return lambda: _Endings.count > since
 
 
 class _Child:
@@ -263,9 +226,9 @@ def _child_main(conn: Connection, profile: Profile, options: _Options) -> None:
         _Endings.serving = False
         if child.started:
             if asked:
-                _come_to_rest(loop, StopKind.CONTROLLED, StopCause.PROGRAM_END)
+                bring_to_rest(loop, StopKind.CONTROLLED, StopCause.PROGRAM_END, harsher=_harsher_asked(_Endings.count))
             else:
-                _come_to_rest(loop, StopKind.FAST, StopCause.UI_STALL)
+                bring_to_rest(loop, StopKind.FAST, StopCause.UI_STALL, harsher=_harsher_asked(_Endings.count))
         loop.close()
         stats, link = loop.stats(), loop.link_stats()
         sidecar = str(recorder.close(stats, link)) if recorder is not None else None
@@ -442,5 +405,5 @@ class LoopProcess:
         if self.failure is None:
             self.failure = LoopProcessEnded(text)
         last = self._snapshot
-        self._snapshot = replace(last, state=SafetyState.STOPPED, cause=StopCause.FAULT,
+        self._snapshot = replace(last, state=SafetyState.STOPPED, cause=StopCause.LOOP_FAILURE,
                                  events=(*last.events, Event(last.t_s, text, "safety")))

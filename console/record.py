@@ -27,6 +27,7 @@ import serial
 from console import __version__
 from console.errors import OutputError
 from console.files import check_stream_target, make_folders, reason, remove_folders, write_atomic
+from console.links import is_simulated
 
 if TYPE_CHECKING:
     from console.profile import Profile
@@ -92,7 +93,7 @@ class Recorder:
         self.path = Path(path)
         self.profile = profile
         self.link_url = link_url
-        self.pose = link_url == "sim" if pose is None else pose
+        self.pose = is_simulated(link_url) if pose is None else pose
         self.columns = COLUMNS + (POSE_COLUMNS if self.pose else ()) + (FLAGS_COLUMN,)
         self.started = datetime.now(timezone.utc)
         self.dropped = 0

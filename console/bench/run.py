@@ -24,7 +24,7 @@ from console.files import reason, write_atomic
 from console.loop import ControlLoop, VirtualClock, WallClock
 from console.profile import Profile
 from console.record import Recorder, sidecar_path
-from console.transport import memory_pair, open_url
+from console.links import is_simulated, open_link
 from shaping.shaper import StopKind
 
 FORMAT = "diffdeck bench 1"
@@ -89,7 +89,7 @@ class BenchRun:
                  link_url: str | None = None, fast: bool | None = None, recording: Path | None = None,
                  ui_timeout_s: float | None = None) -> None:
         url = link_url or profile.link.url
-        on_sim = url == "sim"
+        on_sim = is_simulated(url)
         self.fast = on_sim if fast is None else fast
         if self.fast and not on_sim:
             raise InputError("bench", "--link", url, "the virtual clock (fast) only on the simulated robot (sim)")
@@ -97,15 +97,9 @@ class BenchRun:
         self.bound = BoundProgram(program, profile.envelope)       # raises ProgramError before anything opens
         self.period_s = 1.0 / profile.link.rate_hz
         self.samples = self.bound.sample(self.period_s)
-        self.sim: Any = None
-        if on_sim:
-            from console.sim.firmware import SimRobot
-
-            console_end, robot_end = memory_pair()
-            self.sim = SimRobot(profile, robot_end)
-            transport = console_end
-        else:
-            transport = open_url(url, profile.link.baud)
+        link = open_link(url, profile)
+        self.sim: Any = link.sim
+        transport = link.transport
         self.path = recording or _recording_path(out_dir, profile, program)
         try:
             self.recorder = Recorder(self.path, profile, url)

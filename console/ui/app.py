@@ -17,6 +17,7 @@ from textual.containers import Horizontal, Vertical
 from textual.screen import Screen
 
 from console.core.safety import SafetyState, StopCause
+from console.links import is_simulated
 from console.ui.driving import DriveInput, DriveMode, DriveSettings
 from console.ui.screens import CautionScreen, HelpScreen
 from console.ui.signals import exit_on_ending_signals
@@ -163,7 +164,7 @@ class DriveScreen(Screen[None]):
             snap.t_s, s.v_req_mps, s.v_mps, nan if meas_v is None else meas_v,
             s.omega_req_radps, s.omega_radps, nan if meas_w is None else meas_w, repaint=repaint,
         )
-        self.top_view.add(snap.pose, "true pose (sim)" if snap.link.url == "sim" else "dead reckoning",
+        self.top_view.add(snap.pose, "true pose (sim)" if is_simulated(snap.link.url) else "dead reckoning",
                           repaint=repaint)
         self.event_log.add_loop(snap.events)
 

@@ -21,6 +21,7 @@ from console.bench.run import STOP_WAIT_S, BenchResult, BenchRun
 from console.errors import InputError, LinkLost, RobotFault
 from console.interrupts import Interrupts
 from console.core.safety import StopCause
+from console.links import is_simulated
 from console.profile import load_profile
 from shaping.shaper import StopKind
 
@@ -92,7 +93,7 @@ def run(args: argparse.Namespace) -> int:
         names = ", ".join(seg.name for seg in program.segments if seg.bypass)
         console.print(f"[bold yellow]Caution:[/] segments {names} run AROUND the shaper: no acceleration or jerk "
                       "limit, only the wheel-rate limit. The motors see raw steps.")
-    if url != "sim":
+    if not is_simulated(url):
         _confirm(console, url)
         if program.name == "polarity":
             console.print("Watch the wheels: afterwards you will be asked which wheel turned which way in the "
@@ -144,7 +145,7 @@ def run(args: argparse.Namespace) -> int:
         interrupts.restore()
         result = bench.close()
     code = _outcome(result, interrupts.exit_code)
-    if code == 0 and bench.url != "sim":
+    if code == 0 and not is_simulated(bench.url):
         _ask_observations(console, result)
     console.print(f"bench: recording {result.recording} (+ {result.bench_sidecar.name}); "
                   f"next: diffdeck report {result.recording}")

@@ -21,6 +21,7 @@ from console.bench.tomledit import edit_toml
 from console.files import write_atomic
 from console.bench.umbmark import UmbmarkResult, corrected_values, return_error, square_program, umbmark
 from console.errors import InputError, LinkLost
+from console.links import is_simulated
 from console.profile import Profile, load_profile
 
 NAME = "calibrate"
@@ -117,7 +118,7 @@ def run(args: argparse.Namespace) -> int:
     profile = load_profile(args.profile)
     if not 0.0 < args.side_m <= MAX_SIDE_M:
         raise InputError("command line", "--side-m", args.side_m, f"a side in m, > 0 and <= {MAX_SIDE_M:g}")
-    on_sim = (args.link or profile.link.url) == "sim"
+    on_sim = is_simulated(args.link or profile.link.url)
     runs = args.runs if args.runs is not None else (1 if on_sim else 5)
     if not 1 <= runs <= 20:
         raise InputError("command line", "--runs", runs, "1 to 20 runs per direction")

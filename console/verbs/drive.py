@@ -19,11 +19,12 @@ import time
 from typing import TYPE_CHECKING
 
 from console.errors import InputError
-from console.core.safety import SafetyState, StopCause
+from console.core.safety import StopCause
 from console.loop import WallClock
 from console.profile import Profile, load_profile
 from console.record import default_path
-from console.transport import Transport, memory_pair, open_url
+from console.links import is_simulated
+from console.session import bring_to_rest
 from console.ui.driving import DriveMode, DriveSettings
 from console.ui.trace import KeyWireTrace
 from shaping.shaper import StopKind
@@ -39,7 +40,6 @@ UI_TIMEOUT_S = 0.75
 """No UI heartbeat for this long -> the loop stops the robot (fast stop). Many 40 ms render ticks; a terminal that
 blocks the app for longer than this is not showing the operator the robot any more."""
 UI_SWITCH_INTERVAL_S = 0.0001
-SETTLE_TIMEOUT_S = 10.0
 SIGNAL_EXIT_GRACE_S = 5.0
 """After SIGTERM / SIGHUP, with the robot at rest and the recording closed, the UI gets this long to exit by itself."""
 DEADMAN_RANGE_S = (0.3, 5.0)
@@ -104,27 +104,6 @@ def profile_for_link(args: argparse.Namespace, profile: Profile) -> Profile:
     return dataclasses.replace(profile, link=link)
 
 
-def open_link(profile: Profile) -> tuple[Transport, object | None]:
-    """(console end, simulated robot or None): the in-process sim for "sim", else the pyserial URL."""
-    if profile.link.url == "sim":
-        from console.sim.firmware import SimRobot
-
-        console_end, robot_end = memory_pair("sim")
-        return console_end, SimRobot(profile, robot_end)
-    return open_url(profile.link.url, profile.link.baud), None
-
-
-def _bring_to_rest(loop: LoopProcess, cause: StopCause = StopCause.PROGRAM_END) -> None:
-    """Controlled stop, then keep the loop (and its UI heartbeat) going until the robot is at rest."""
-    loop.stop(StopKind.CONTROLLED, cause)
-    deadline = time.monotonic() + SETTLE_TIMEOUT_S
-    while time.monotonic() < deadline and loop.failure is None:
-        loop.ui_alive()
-        if loop.snapshot().state in (SafetyState.DISARMED, SafetyState.STOPPED):
-            return
-        time.sleep(0.02)
-
-
 def run(args: argparse.Namespace) -> int:
     from console.loop_process import LoopProcess   # the loop's own process: the UI cannot make it late
     from console.ui.app import RENDER_HZ, DriveApp  # Textual is imported only when the console really opens
@@ -156,19 +135,19 @@ def run(args: argparse.Namespace) -> int:
         too, but with its terminal gone it may never get there; this thread then ends the process once the robot
         is at rest and the recording closed."""
         def shutdown() -> None:
-            _bring_to_rest(loop, StopCause.SIGNAL)
+            bring_to_rest(loop, StopKind.CONTROLLED, StopCause.SIGNAL)
             loop.close()
             time.sleep(SIGNAL_EXIT_GRACE_S)
             os._exit(128 + signum)
 
         threading.Thread(target=shutdown, name="diffdeck-signal-stop", daemon=True).start()
 
-    app = DriveApp(loop, profile, WallClock(), settings, real_link=profile.link.url != "sim", trace=trace,
+    app = DriveApp(loop, profile, WallClock(), settings, real_link=not is_simulated(profile.link.url), trace=trace,
                    on_ready=start_loop, on_ending_signal=stop_on_signal)
     try:
         app.run()
     finally:
-        _bring_to_rest(loop)
+        bring_to_rest(loop, StopKind.CONTROLLED, StopCause.PROGRAM_END)
         loop.close()                      # controlled stop; the child closes the recording (CSV + sidecar)
         if loop.record_path is not None:
             _say(f"diffdeck drive: recorded {loop.record_path}")

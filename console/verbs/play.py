@@ -26,8 +26,7 @@ from console.protocol import flag_names
 from console.loop import ControlLoop, VirtualClock, WallClock
 from console.profile import load_profile
 from console.record import Recorder, default_path, sidecar_path
-from console.sim.firmware import SimRobot
-from console.transport import memory_pair, open_url
+from console.links import is_simulated, open_link
 from console.verbs.shape import TIME_EPS_S, Requests, read_requests
 from shaping.shaper import StopKind
 
@@ -155,16 +154,12 @@ def run(args: argparse.Namespace) -> int:
     profile = load_profile(args.profile)
     requests = read_requests(args.requests)
     url = args.link if args.link is not None else profile.link.url
-    if args.fast and url != "sim":
+    if args.fast and not is_simulated(url):
         raise InputError("command line", "--fast", url,
                          'only with the simulated robot (--link sim): a real robot runs in real time')
     _check_output(args.record)
-    sim = None
-    if url == "sim":
-        transport, robot_end = memory_pair()
-        sim = SimRobot(profile, robot_end)
-    else:
-        transport = open_url(url, profile.link.baud)
+    link = open_link(url, profile)
+    sim, transport = link.sim, link.transport
     record = Path(args.record) if args.record else default_path(profile)
     try:
         recorder = Recorder(record, profile, url)

@@ -141,13 +141,14 @@ def _headless_main(duration_s: float, out: Path) -> None:
     from console.loop import ControlLoop, WallClock
     from console.profile import load_profile
     from console.ui.trace import KeyWireTrace
-    from console.verbs.drive import open_link
+    from console.links import open_link
     from shaping.shaper import StopKind
 
     wren = load_profile(ROOT / "profiles" / "wren.toml")
     profile = dataclasses.replace(wren, link=dataclasses.replace(wren.link, rate_hz=RATE_HZ))
     trace = KeyWireTrace(out)
-    transport, sim = open_link(profile)
+    link = open_link(profile.link.url, profile)
+    transport, sim = link.transport, link.sim
     loop = ControlLoop(profile, trace.wrap(transport), WallClock(), sim=sim)
     loop.start()
     time.sleep(0.5)

@@ -156,7 +156,7 @@ def test_a_dead_child_shows_as_stopped_without_a_hang(profile, tmp_path, signum)
         os.kill(proxy.pid, signum)
         assert _wait(lambda: any(e.text.startswith(ENDED) for e in proxy.snapshot().events))
         snap = proxy.snapshot()
-        assert snap.state is SafetyState.STOPPED and snap.cause is StopCause.FAULT
+        assert snap.state is SafetyState.STOPPED and snap.cause is StopCause.LOOP_FAILURE
         assert isinstance(proxy.failure, LoopProcessEnded)
         proxy.stop(StopKind.FAST)       # dropped, not raised
         proxy.ui_alive()

@@ -1,0 +1,93 @@
+"""What every verb that moves a robot shares about a running loop: the `LoopHandle` caller surface and one way to
+bring the robot to rest.
+
+A handle is the loop on a thread of this process (`console.loop.ControlLoop`) or in a child process
+(`console.loop_process.LoopProcess`); `drive`, `play`, `bench` (with and without its screen) and `calibrate` only use
+this surface, so none of them knows which one it holds.
+"""
+
+from __future__ import annotations
+
+import time
+from collections.abc import Callable
+from typing import TYPE_CHECKING, Protocol
+
+from console.core.safety import SafetyState, StopCause
+from shaping.ramp import plan_ramp
+from shaping.shaper import StopKind, speed_limits, turn_limits
+
+if TYPE_CHECKING:
+    from console.core.link import LinkStats
+    from console.core.step import LoopStats, Snapshot
+    from console.profile import Profile
+
+STOP_MARGIN_S = 1.0
+"""Added to the time a stop should take (its ramps from the current state) before it is escalated."""
+REST_POLL_S = 0.01
+
+
+class LoopHandle(Protocol):
+    """The caller side of a running control loop; every call returns at once (values are taken next cycle)."""
+
+    profile: Profile
+
+    @property
+    def failure(self) -> BaseException | None: ...
+
+    def request(self, v_mps: float, omega_radps: float) -> None: ...
+
+    def request_wheels(self, left_radps: float, right_radps: float) -> None: ...
+
+    def arm(self) -> None: ...
+
+    def stop(self, kind: StopKind, cause: StopCause = StopCause.OPERATOR) -> None: ...
+
+    def operator_alive(self) -> None: ...
+
+    def ui_alive(self) -> None: ...
+
+    def snapshot(self) -> Snapshot: ...
+
+    def stats(self) -> LoopStats: ...
+
+    def link_stats(self) -> LinkStats: ...
+
+    def start(self, realtime: bool = True) -> None: ...
+
+    def close(self) -> None: ...
+
+
+def stop_allowance_s(loop: LoopHandle, kind: StopKind) -> float:
+    """How long the stop should take from the current shaped state (both axes' ramps to zero), plus a margin."""
+    shaped, limits = loop.snapshot().shaped, loop.profile.limits
+    stop = kind if kind is StopKind.FAST else None
+    speed = plan_ramp(shaped.v_mps, shaped.a_mps2, 0.0, speed_limits(limits, stop)).duration
+    turn = plan_ramp(shaped.omega_radps, shaped.alpha_radps2, 0.0, turn_limits(limits, stop)).duration
+    return max(speed, turn) + STOP_MARGIN_S
+
+
+def at_rest(loop: LoopHandle) -> bool:
+    """No motion frames go out any more (disarmed or stopped), or the loop failed (it then sends only stops)."""
+    return loop.failure is not None or loop.snapshot().state in (SafetyState.DISARMED, SafetyState.STOPPED)
+
+
+def bring_to_rest(loop: LoopHandle, kind: StopKind, cause: StopCause, *,
+                  harsher: Callable[[], bool] = lambda: False) -> None:
+    """Stop with `kind` on the wall clock; escalate to an immediate stop if the robot is not at rest in the time the
+    stop should take, or as soon as `harsher()` turns true (a repeated signal).
+
+    The UI heartbeat is beaten meanwhile: whoever calls this is the only one left to do it, and a UI-stall stop must
+    not interrupt the stop asked for here.
+    """
+    steps = (kind,) if kind is StopKind.IMMEDIATE else (kind, StopKind.IMMEDIATE)
+    for step in steps:
+        loop.stop(step, cause)
+        deadline = time.monotonic() + stop_allowance_s(loop, step)
+        time.sleep(2.0 / loop.profile.link.rate_hz)         # let the loop take the stop before judging the state
+        while not at_rest(loop) and time.monotonic() < deadline:
+            if step is not StopKind.IMMEDIATE and harsher():
+                break
+            loop.ui_alive()
+            time.sleep(REST_POLL_S)
+        if at_rest(loop):
+            return
