@@ -165,8 +165,14 @@ class SafetyMachine:
 def transition_table_markdown() -> str:
     """The two tables of this module as Markdown (docs/control-loop.md holds this text; a test keeps them equal)."""
     lines = ["| state | trigger | guard | next state | what happens |", "|---|---|---|---|---|"]
+    shown: set[tuple[Trigger, Rule]] = set()
     for (state, trigger), rule in TRANSITIONS.items():
-        lines.append(f"| {state.value} | {trigger.value} | {rule.guard.value} | {rule.target.value} | {rule.note} |")
+        every = all(TRANSITIONS.get((other, trigger)) == rule for other in SafetyState)
+        if every and (trigger, rule) in shown:
+            continue
+        shown.add((trigger, rule))
+        where = "any" if every else state.value
+        lines.append(f"| {where} | {trigger.value} | {rule.guard.value} | {rule.target.value} | {rule.note} |")
     lines += ["", "| stop cause | stop kind | watched while | detected by |", "|---|---|---|---|"]
     for cause, rule in CAUSES.items():
         kind = rule.kind.value if rule.kind is not None else "as asked"
