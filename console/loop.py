@@ -26,10 +26,11 @@ import numpy as np
 from console.core.link import LinkStats
 from console.core.safety import KIND_RANK, StopCause
 from console.core.step import Inputs, LoopCore, LoopStats, Snapshot
-from console.errors import LinkLost
+from console.errors import DiffdeckError, LinkLost
 from shaping.shaper import StopKind
 
 if TYPE_CHECKING:
+    from console.links import Link
     from console.profile import LinkConfig, Profile
     from console.record import Recorder
     from console.sim.firmware import SimRobot
@@ -189,7 +190,8 @@ class ControlLoop:
     def __init__(self, profile: Profile, transport: Transport, clock: Clock, *, sim: SimRobot | None = None,
                  recorder: Recorder | None = None, operator_timeout_s: float | None = None,
                  ui_timeout_s: float | None = None, url: str | None = None,
-                 on_cycle: Callable[[float], None] | None = None) -> None:
+                 on_cycle: Callable[[float], None] | None = None,
+                 reopen: Callable[[], Link] | None = None) -> None:
         self.profile = profile
         self.clock = clock
         self._transport = transport
@@ -197,6 +199,9 @@ class ControlLoop:
         self._recorder = recorder
         self._pose_columns = bool(recorder is not None and getattr(recorder, "pose", False))
         self._on_cycle = on_cycle
+        self._reopen = reopen
+        self._reopened: Link | str | None = None      # a link opened again (or why not), for the loop thread
+        self._reopening = False
         self._core = LoopCore(profile, url if url is not None else profile.link.url,
                               operator_timeout_s=operator_timeout_s, ui_timeout_s=ui_timeout_s)
         self._period = 1.0 / profile.link.rate_hz
@@ -262,6 +267,23 @@ class ControlLoop:
     def ui_alive(self) -> None:
         with self._lock:
             self._ui_beats += 1
+
+    def reconnect(self) -> None:
+        """After a link loss: open the same URL again, on a helper thread (opening can take seconds); the loop thread
+        takes the new link at its next cycle. The robot must be armed again afterwards."""
+        if self._reopen is None or self._reopening or self._core.link.lost is None:
+            return
+        self._reopening = True
+        threading.Thread(target=self._open_again, name="diffdeck-reconnect", daemon=True).start()
+
+    def _open_again(self) -> None:
+        assert self._reopen is not None
+        try:
+            link: Link | str = self._reopen()
+        except DiffdeckError as error:
+            link = str(error)
+        with self._lock:
+            self._reopened = link
 
     def snapshot(self) -> Snapshot:
         return self._core.snapshot
@@ -331,6 +353,8 @@ class ControlLoop:
             if self._on_cycle is not None:
                 self._on_cycle(t)
             inputs = self._take_inputs()
+            if self._reopened is not None:
+                self._take_reopened(t)
             received = self._read(t)
             data, snapshot = core.step(t, tick.dt_s, inputs, received)
         except Exception as error:   # noqa: BLE001 - a bug must not leave the robot running on stale commands
@@ -347,6 +371,22 @@ class ControlLoop:
             self._stats_mark = t
             core.loop_stats = self.stats()
         self._stats.add(tick.error_s, self.clock.now() - t_abs)
+
+    def _take_reopened(self, t: float) -> None:
+        with self._lock:
+            link, self._reopened = self._reopened, None
+        self._reopening = False
+        if isinstance(link, str):
+            self._core.note(t, f"reconnect failed: {link}", "link")
+            return
+        try:
+            self._transport.close()
+        except LinkLost:
+            pass
+        self._transport = link.transport
+        if link.sim is not None:
+            self._sim = link.sim
+        self._core.link_reopened(t)
 
     def _take_inputs(self) -> Inputs:
         with self._lock:

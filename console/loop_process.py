@@ -123,7 +123,7 @@ def _build(profile: Profile, options: _Options) -> tuple[ControlLoop, Any, Any]:
     """(loop, recorder or None, wire trace or None); raises InputError / LinkLost with the link closed again."""
     from console.record import Recorder
 
-    from console.links import open_link
+    from console.links import Link, open_link
 
     link = open_link(profile.link.url, profile)
     sim, transport = link.sim, link.transport
@@ -141,9 +141,16 @@ def _build(profile: Profile, options: _Options) -> tuple[ControlLoop, Any, Any]:
             transport.close()
             raise InputError("recording", "path", options.record_path,
                              f"cannot be written ({error.strerror or error})") from None
+    def reopen() -> Link:
+        """The same URL again, after a link loss (reconnect), traced as the first one was."""
+        again = open_link(profile.link.url, profile)
+        if trace is not None:
+            again.transport = trace.wrap(again.transport)
+        return again
+
     loop = ControlLoop(profile, transport, WallClock(), sim=sim, recorder=recorder,
                        operator_timeout_s=options.operator_timeout_s, ui_timeout_s=options.ui_timeout_s,
-                       url=options.url)
+                       url=options.url, reopen=reopen)
     return loop, recorder, trace
 
 
@@ -161,7 +168,8 @@ class _Child:
         self.options = options
         self.started = False
         self._handlers = {"request": loop.request, "wheels": loop.request_wheels, "arm": loop.arm,
-                          "stop": loop.stop, "op": loop.operator_alive, "ui": loop.ui_alive, "start": self._start}
+                          "stop": loop.stop, "op": loop.operator_alive, "ui": loop.ui_alive, "start": self._start,
+                          "reconnect": loop.reconnect}
 
     def _start(self, realtime: bool) -> None:
         gc.collect()
@@ -318,6 +326,9 @@ class LoopProcess:
 
     def operator_alive(self) -> None:
         self._send("op")
+
+    def reconnect(self) -> None:
+        self._send("reconnect")
 
     def ui_alive(self) -> None:
         self._send("ui")

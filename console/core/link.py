@@ -31,9 +31,10 @@ class LinkStats:
 class LinkMonitor:
     """Telemetry freshness, echoes and round trip, gaps in the robot's numbering, port loss; no clock of its own."""
 
-    def __init__(self, url: str, telemetry_timeout_s: float) -> None:
+    def __init__(self, url: str, telemetry_timeout_s: float, opened_t: float = 0.0) -> None:
         self.url = url
         self.timeout_s = telemetry_timeout_s
+        self.opened_t = opened_t                # telemetry is overdue from here until the first frame
         self.port_gone: str | None = None
         self.stale = False
         self.last_telemetry_t: float | None = None
@@ -108,7 +109,7 @@ class LinkMonitor:
         """Mark the link stale when telemetry is overdue; returns the event text the moment it happens."""
         if self.port_gone is not None or self.stale:
             return None
-        age = t - (self.last_telemetry_t if self.last_telemetry_t is not None else 0.0)
+        age = t - (self.last_telemetry_t if self.last_telemetry_t is not None else self.opened_t)
         if age > self.timeout_s:
             self.stale = True
             return f"link lost: no valid telemetry for {self.timeout_s:g} s"

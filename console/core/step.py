@@ -139,6 +139,16 @@ class LoopCore:
         self._log(now_s, reason, "link")
         self._stop(now_s, StopCause.LINK_LOST)
 
+    def link_reopened(self, now_s: float) -> None:
+        """The runner opened the same URL again after a loss: a new link monitor (and codec: no half line from the
+        old link); the robot's state is unknown until telemetry comes, and moving needs a new arming."""
+        url = self.link.url
+        self.link = LinkMonitor(url, self.profile.link.telemetry_timeout_s, opened_t=now_s)
+        self.codec = make_codec(self.profile.link)
+        self._meas = None
+        self._flags = 0
+        self._log(now_s, f"link reopened: {url}; arm again once telemetry is back", "link")
+
     def fail(self, now_s: float, error: BaseException) -> bytes:
         """An error inside a cycle: STOPPED (loop failure) and the strongest stop frame the codec can make."""
         self.failure = error
@@ -341,6 +351,10 @@ class LoopCore:
         elif self._meas is not None and self.link.live:
             v, omega = self.profile.geometry.to_body(*self._meas)
             self._pose = arc_step(*(self._pose or (0.0, 0.0, 0.0)), v, omega, dt)
+
+    def note(self, now_s: float, text: str, kind: str) -> None:
+        """An event from the runner (a reconnect that failed) into the same log."""
+        self._log(now_s, text, kind)
 
     def _log(self, now: float, text: str, kind: str) -> None:
         self._events.append(Event(now, text, kind))

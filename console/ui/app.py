@@ -43,9 +43,10 @@ enough and keeps the whole console within its CPU budget; their samples are stil
 not ticks, decides, so a run on the virtual clock draws the same frames every time."""
 
 
-AT_REST_RADPS = 0.05
-"""Measured wheel rates below this count as wheels at rest (a few encoder counts per telemetry frame; common
-practice, no standard value)."""
+AT_REST_RADPS = 0.3
+"""Measured wheel rates below this count as wheels at rest: above the spread of measured rates at standstill (the
+demo robots' simulated measurement noise is 0.05-0.08 rad/s standard deviation, so 3 sigma stays under it); common
+practice, no standard value."""
 
 
 def _wheels_word(snap: Snapshot) -> str:
@@ -74,6 +75,7 @@ class DriveScreen(Screen[None]):
         Binding("right_square_bracket", "steps(2.0)", "coarser steps", show=False),
         Binding("m", "toggle_mode", "hold/latched", show=False),
         Binding("k", "keepalive", "still here", show=False),
+        Binding("r", "reconnect_open", "reconnect (1/2)", show=False),
         Binding("question_mark,f1", "help", "help", show=False),
     ]
 
@@ -173,7 +175,9 @@ class DriveScreen(Screen[None]):
         """Only what is known: the robot's state needs live telemetry; the arming hint only when arming would work."""
         state, refusal = snap.state, snap.arm_refusal
         if snap.link.lost is not None:
-            return "link lost, robot state unknown"
+            if drive.reconnect_pending(now_s):
+                return "link lost · press ENTER now to reopen it"
+            return "link lost, robot state unknown\nreconnect: r, enter"
         if refusal is None and drive.arm_pending(now_s) and state in (SafetyState.DISARMED, SafetyState.STOPPED):
             return "press ENTER now to arm"
         arming = f"cannot arm: {refusal}" if refusal is not None else \
@@ -221,6 +225,9 @@ class DriveScreen(Screen[None]):
 
     def action_toggle_mode(self) -> None:
         self.console.toggle_mode()
+
+    def action_reconnect_open(self) -> None:
+        self.console.reconnect_open()
 
     def action_keepalive(self) -> None:
         self.console.keepalive()
@@ -340,7 +347,22 @@ class DriveApp(App[int]):
         self._note(f"arming: press enter within {self.drive.arm_window_s:g} s")
         self.tick()
 
+    def reconnect_open(self) -> None:
+        self._key("reconnect open")
+        snap = self.last_snapshot
+        if snap is None or snap.link.lost is None:
+            self._note("the link is up: nothing to reconnect")
+            return
+        self.drive.open_reconnect(self.clock.now())
+        self._note(f"reconnect {snap.link.url}: press enter within {self.drive.arm_window_s:g} s")
+        self.tick()
+
     def arm_confirm(self) -> None:
+        if self.drive.confirm_reconnect(self.clock.now()):
+            self._key("reconnect confirm")
+            self.loop.reconnect()
+            self._note("reopening the link; arm again once telemetry is back")
+            return
         self._key("arm confirm")
         if not self.drive.confirm_arm(self.clock.now()):
             self._note("enter arms only right after a")

@@ -9,7 +9,8 @@ the loop clock's time; it answers with the request to send).
 - Latched mode: the request stays until changed, as long as the operator shows presence: some key (k is the one
   that changes nothing) at least every `keepalive_s`, or the loop brings the robot to a controlled stop (cause
   deadman). Hold mode needs no keep-alive: its own deadman already zeroes an unattended request.
-- Arming is a two-key sequence: the arm key opens a short window, the confirm key inside it arms.
+- Arming is a two-key sequence: the arm key opens a short window, the confirm key inside it arms. Reopening a lost
+  link is the same with the reconnect key.
 """
 
 from __future__ import annotations
@@ -55,6 +56,7 @@ class DriveInput:
         self.deadman_s = settings.deadman_s
         self.keepalive_s = settings.keepalive_s
         self._present_s = 0.0
+        self._reconnect_opened_s: float | None = None
         self.arm_window_s = settings.arm_window_s
         self.mode = settings.mode
         self.v_mps = 0.0
@@ -144,6 +146,7 @@ class DriveInput:
 
     def open_arm(self, now_s: float) -> None:
         self._arm_opened_s = now_s
+        self._reconnect_opened_s = None
 
     def arm_pending(self, now_s: float) -> bool:
         return self._arm_opened_s is not None and now_s - self._arm_opened_s <= self.arm_window_s
@@ -156,3 +159,17 @@ class DriveInput:
 
     def cancel_arm(self) -> None:
         self._arm_opened_s = None
+        self._reconnect_opened_s = None
+
+    def open_reconnect(self, now_s: float) -> None:
+        """After a link loss: the reconnect key opens the same window the arm key does, for the confirm key."""
+        self._reconnect_opened_s = now_s
+        self._arm_opened_s = None
+
+    def reconnect_pending(self, now_s: float) -> bool:
+        return self._reconnect_opened_s is not None and now_s - self._reconnect_opened_s <= self.arm_window_s
+
+    def confirm_reconnect(self, now_s: float) -> bool:
+        pending = self.reconnect_pending(now_s)
+        self._reconnect_opened_s = None
+        return pending

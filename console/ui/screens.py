@@ -22,6 +22,7 @@ HELP_GROUPS: tuple[tuple[str, tuple[tuple[str, str], ...]], ...] = (
     ("Arming", (
         ("a", "open the arming window (2 s): nothing moves yet"),
         ("enter", "inside the window: arm. The request starts at zero; after any stop, arm again"),
+        ("r", "after a link loss: reopen the same link (enter within 2 s confirms); arm again afterwards"),
     )),
     ("Driving (armed only)", (
         ("up / down", "speed request + / − one step"),

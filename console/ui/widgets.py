@@ -611,6 +611,7 @@ class KeyCard(Panel):
         ("[ ]", "finer / coarser steps"),
         ("m", "hold ↔ latched"),
         ("k", "still here (latched)"),
+        ("r then ⏎", "reconnect a lost link"),
         ("? / F1", "all keys and cautions"),
     )
 

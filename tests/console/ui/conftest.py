@@ -10,6 +10,7 @@ from pathlib import Path
 import pytest
 
 from console.core.step import Snapshot
+from console.links import open_link
 from console.loop import ControlLoop, VirtualClock
 from console.profile import Profile, load_profile
 from console.sim.firmware import SimRobot
@@ -51,7 +52,7 @@ def make_rig(*, profile_name: str = "wren.toml", real_link: bool = False, mode: 
     sim = SimRobot(profile, robot_end)
     clock = VirtualClock()
     loop = ControlLoop(profile, console_end, clock, sim=sim, ui_timeout_s=UI_TIMEOUT_S, url="sim",
-                       operator_timeout_s=keepalive_s)
+                       operator_timeout_s=keepalive_s, reopen=lambda: open_link("sim", profile))
     settings = DriveSettings.for_envelope(profile.envelope, mode=mode, deadman_s=deadman_s, keepalive_s=keepalive_s)
     # the refresh timer is slowed right down: the test's own ticks (in virtual time) are the ones that count
     app = DriveApp(loop, profile, clock, settings, real_link=real_link, render_hz=1.0)

@@ -355,3 +355,37 @@ async def test_latched_mode_needs_a_keepalive_and_counts_it_down() -> None:
         assert rig.snap.state in (SafetyState.STOPPING, SafetyState.STOPPED)
         assert rig.snap.cause is StopCause.DEADMAN
         assert any("stop (deadman)" in e.text and "controlled" in e.text for e in rig.snap.events)
+
+
+async def test_after_a_link_loss_the_link_can_be_reopened_and_must_be_armed_again(latched_rig: Rig) -> None:
+    """Issue 9: after a link loss the console offers to reopen the same link (r, confirmed with enter); the robot's
+    state is unknown until telemetry is back, and moving needs a new arming."""
+    rig = latched_rig
+    async with rig.app.run_test(size=SIZE) as pilot:
+        await arm(rig, pilot)
+        await pilot.press("3")
+        rig.advance(1.0)
+        rig.robot_end.close()                              # the cable is pulled
+        rig.advance(0.3)
+        await pilot.pause()
+        assert "reconnect: r, enter" in banner_text(rig.app)
+        await pilot.press("r")
+        rig.advance(0.04)
+        await pilot.pause()
+        assert "press ENTER now to reopen it" in banner_text(rig.app)
+        await pilot.press("enter")
+        for _ in range(100):                               # the link opens on a helper thread
+            rig.advance(0.04)
+            if rig.snap.link.lost is None and rig.snap.link.telemetry_received > 0:
+                break
+        assert rig.snap.link.lost is None and rig.snap.link.telemetry_received > 0
+        assert rig.snap.state is SafetyState.STOPPED       # reopening never arms
+        assert any("link reopened" in e.text for e in rig.snap.events)
+        await pilot.pause()
+        assert "re-arm: a, enter" in banner_text(rig.app)
+        await pilot.press("a", "enter")
+        rig.advance(0.1)
+        assert rig.snap.state is SafetyState.ARMED
+        await pilot.press("3")
+        rig.advance(1.5)
+        assert rig.snap.shaped.v_mps > 0.0 and rig.snap.left_meas_radps > 0.0
