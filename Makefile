@@ -16,6 +16,8 @@ run: $(STAMP)
 	$(VENV)/bin/diffdeck drive $(DEMO)
 
 test: $(STAMP)
+	$(VENV)/bin/ruff check shaping console
+	$(VENV)/bin/mypy
 	$(PY) -m pytest -q
 
 bench: $(STAMP)

@@ -15,9 +15,9 @@ import sys
 import tempfile
 import threading
 import traceback
-from datetime import datetime, timezone
+from datetime import UTC, datetime
 from types import FrameType, ModuleType
-from typing import NoReturn
+from typing import Any, NoReturn
 
 from console import __version__, verbs
 from console.errors import DiffdeckError, OutputError
@@ -46,7 +46,8 @@ class _Parser(argparse.ArgumentParser):
 
 
 def _verb_modules() -> list[ModuleType]:
-    modules = [importlib.import_module(f"{verbs.__name__}.{info.name}") for info in pkgutil.iter_modules(verbs.__path__)]
+    modules = [importlib.import_module(f"{verbs.__name__}.{info.name}")
+               for info in pkgutil.iter_modules(verbs.__path__)]
     return sorted(modules, key=lambda module: module.ORDER)
 
 
@@ -69,10 +70,10 @@ def _raise_terminated(signum: int, frame: FrameType | None) -> None:
     raise Terminated(signum)
 
 
-def _install_ending_signals() -> dict[int, object]:
+def _install_ending_signals() -> dict[int, Any]:
     """SIGTERM and SIGHUP raise Terminated where nothing else handles them (a verb may install its own); only the
     main thread may install handlers, so main() called from another thread leaves them as they are."""
-    previous: dict[int, object] = {}
+    previous: dict[int, Any] = {}
     if threading.current_thread() is not threading.main_thread():
         return previous
     for signum in ENDING_SIGNALS:
@@ -108,7 +109,7 @@ def _internal_error(error: BaseException) -> int:
     try:
         fd, log = tempfile.mkstemp(prefix="diffdeck-error-", suffix=".log")
         with os.fdopen(fd, "w", encoding="utf-8") as handle:
-            handle.write(f"diffdeck {__version__}, {datetime.now(timezone.utc).isoformat()}, argv {sys.argv!r}\n")
+            handle.write(f"diffdeck {__version__}, {datetime.now(UTC).isoformat()}, argv {sys.argv!r}\n")
             handle.write("".join(traceback.format_exception(error)))
         where = f"the traceback is in {log}"
     except OSError as log_error:

@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-
 MAX_SHOWN = 200     # characters of an offending value shown in the one line
 
 
@@ -13,7 +12,8 @@ class DiffdeckError(Exception):
 
 
 class InputError(DiffdeckError):
-    """Bad user input (profile, CSV, program, recording): names the file, the key or field, the value, what is allowed."""
+    """Bad user input (profile, CSV, program, recording): names the file, the key or field, the value, what is
+    allowed."""
 
     def __init__(self, where: str, key: str, value: object, allowed: str) -> None:
         self.where = where

@@ -31,7 +31,7 @@ from shaping.shaper import StopKind
 
 if TYPE_CHECKING:
     from console.links import Link
-    from console.profile import LinkConfig, Profile
+    from console.profile import Profile
     from console.record import Recorder
     from console.sim.firmware import SimRobot
     from console.transport import Transport
@@ -180,7 +180,7 @@ def request_realtime() -> str:
 
 
 class ControlLoop:
-    """The runner around `LoopCore`: clock, deadlines, port, simulated robot, recorder, thread; see the module docstring.
+    """The runner around `LoopCore`: clock, deadlines, port, simulated robot, recorder, thread (module docstring).
 
     The caller side (`arm`, `request`, `stop`, `operator_alive`, `ui_alive`) only sets values under a lock; the loop
     takes them at the start of its next cycle. `snapshot()` returns the latest immutable Snapshot (swapped by one
@@ -218,7 +218,7 @@ class ControlLoop:
         # loop-thread state
         self._beats_seen = (0, 0)
         self._t0: float | None = None
-        self._sim_t: float | None = None
+        self._sim_t = 0.0
         self._stats_mark = 0.0
         self._thread: threading.Thread | None = None
         self._closing = threading.Event()
@@ -339,10 +339,10 @@ class ControlLoop:
     def _cycle(self, tick: Tick) -> None:
         """I/O around one core step; an error in the runner's own part fails the core too (category-0 stop sent)."""
         t_abs = tick.started_s
-        if self._t0 is None:
-            self._t0 = self._scheduler.t0
-            self._sim_t = self._t0
-        t = t_abs - self._t0
+        t0 = self._t0
+        if t0 is None:
+            t0 = self._t0 = self._sim_t = self._scheduler.t0 if self._scheduler.t0 is not None else t_abs
+        t = t_abs - t0
         core = self._core
         try:
             if self._sim is not None:
@@ -366,7 +366,7 @@ class ControlLoop:
             except LinkLost as error:
                 core.link_gone(t, str(error))
         if self._recorder is not None:
-            self._record(snapshot)
+            self._record(self._recorder, snapshot)
         if t - self._stats_mark >= STATS_REFRESH_S:
             self._stats_mark = t
             core.loop_stats = self.stats()
@@ -376,6 +376,8 @@ class ControlLoop:
         with self._lock:
             link, self._reopened = self._reopened, None
         self._reopening = False
+        if link is None:
+            return
         if isinstance(link, str):
             self._core.note(t, f"reconnect failed: {link}", "link")
             return
@@ -408,11 +410,11 @@ class ControlLoop:
             self._core.link_gone(t, str(error))
             return b""
 
-    def _record(self, s: Snapshot) -> None:
+    def _record(self, recorder: Recorder, s: Snapshot) -> None:
         shaped = s.shaped
         row: tuple[object, ...] = (s.t_s, shaped.v_req_mps, shaped.omega_req_radps, shaped.v_mps, shaped.omega_radps,
                                    shaped.left_radps, shaped.right_radps, s.left_meas_radps, s.right_meas_radps,
                                    s.state.value)
         if self._pose_columns:
             row += s.pose if s.pose is not None else (None, None, None)
-        self._recorder.put((*row, s.flags))
+        recorder.put((*row, s.flags))

@@ -33,10 +33,10 @@ from dataclasses import dataclass, replace
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
-from console.errors import InputError, LinkLost
 from console.core.link import LinkStats
 from console.core.safety import SafetyState, StopCause
 from console.core.step import Event, LoopStats, Snapshot
+from console.errors import InputError
 from console.loop import ControlLoop, WallClock, request_realtime
 from console.session import bring_to_rest
 from shaping.shaper import StopKind
@@ -121,9 +121,8 @@ def _has_room(conn: Connection) -> bool:
 
 def _build(profile: Profile, options: _Options) -> tuple[ControlLoop, Any, Any]:
     """(loop, recorder or None, wire trace or None); raises InputError / LinkLost with the link closed again."""
-    from console.record import Recorder
-
     from console.links import Link, open_link
+    from console.record import Recorder
 
     link = open_link(profile.link.url, profile)
     sim, transport = link.sim, link.transport
@@ -167,9 +166,9 @@ class _Child:
         self.loop = loop
         self.options = options
         self.started = False
-        self._handlers = {"request": loop.request, "wheels": loop.request_wheels, "arm": loop.arm,
-                          "stop": loop.stop, "op": loop.operator_alive, "ui": loop.ui_alive, "start": self._start,
-                          "reconnect": loop.reconnect}
+        self._handlers: dict[str, Callable[..., None]] = {
+            "request": loop.request, "wheels": loop.request_wheels, "arm": loop.arm, "stop": loop.stop,
+            "op": loop.operator_alive, "ui": loop.ui_alive, "start": self._start, "reconnect": loop.reconnect}
 
     def _start(self, realtime: bool) -> None:
         gc.collect()

@@ -15,8 +15,8 @@ import re
 import string
 import subprocess
 import sys
-import urllib.parse
 import tomllib
+import urllib.parse
 from dataclasses import dataclass, field, fields
 from pathlib import Path
 from typing import Any

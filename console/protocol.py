@@ -60,7 +60,8 @@ class WheelCommand:
 
 @dataclass(frozen=True, slots=True)
 class StopCommand:
-    """Console -> robot: stop with a stop category (0 remove power at once, 1 controlled then off, 2 controlled, held)."""
+    """Console -> robot: stop with a stop category (0 remove power at once, 1 controlled then off, 2 controlled,
+    held)."""
 
     seq: int
     category: int
@@ -104,19 +105,19 @@ def crc16(data: bytes) -> int:
     return binascii.crc_hqx(data, CRC_INIT)
 
 
-def _seq(seq: int) -> int:
+def _seq(seq: int | None) -> int:
     if not (type(seq) is int and 0 <= seq < SEQ_MODULUS):
         raise ValueError(f"seq = {seq!r}: an int 0..{SEQ_MODULUS - 1}")
     return seq
 
 
-def _rate(name: str, value: float) -> float:
+def _rate(name: str, value: float | None) -> float:
     if not (isinstance(value, (int, float)) and -RATE_MAX <= value <= RATE_MAX):     # also rejects NaN and None
         raise ValueError(f"{name} = {value!r}: a finite rate within +-{RATE_MAX:.0f}")
     return value
 
 
-def _ticks(name: str, value: int) -> int:
+def _ticks(name: str, value: int | None) -> int:
     if not (type(value) is int and TICKS_MIN <= value <= TICKS_MAX):
         raise ValueError(f"{name} = {value!r}: an int32")
     return value

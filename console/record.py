@@ -17,7 +17,7 @@ import platform
 import threading
 from collections import deque
 from collections.abc import Sequence
-from datetime import datetime, timezone
+from datetime import UTC, datetime
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
@@ -43,7 +43,7 @@ RECORDINGS_DIR = Path("recordings")
 
 def default_path(profile: Profile, now: datetime | None = None) -> Path:
     """`recordings/<profile file name>-<UTC timestamp>.csv`, never an existing file."""
-    stamp = (now or datetime.now(timezone.utc)).strftime("%Y%m%dT%H%M%SZ")
+    stamp = (now or datetime.now(UTC)).strftime("%Y%m%dT%H%M%SZ")
     path = RECORDINGS_DIR / f"{profile.path.stem}-{stamp}.csv"
     n = 1
     while path.exists() or path.with_name(path.name + ".json").exists():
@@ -95,7 +95,7 @@ class Recorder:
         self.link_url = link_url
         self.pose = is_simulated(link_url) if pose is None else pose
         self.columns = COLUMNS + (POSE_COLUMNS if self.pose else ()) + (FLAGS_COLUMN,)
-        self.started = datetime.now(timezone.utc)
+        self.started = datetime.now(UTC)
         self.dropped = 0
         self.written = 0
         self.write_error: str | None = None     # why recording stopped early (a full disk), kept in the sidecar
@@ -185,7 +185,7 @@ class Recorder:
             "csv": self.path.name,
             "columns": list(self.columns),
             "started_utc": self.started.isoformat(timespec="milliseconds"),
-            "ended_utc": datetime.now(timezone.utc).isoformat(timespec="milliseconds"),
+            "ended_utc": datetime.now(UTC).isoformat(timespec="milliseconds"),
             "link_url": self.link_url,
             "versions": {"diffdeck": __version__, "python": platform.python_version(), "numpy": numpy.__version__,
                          "pyserial": serial.__version__},

@@ -207,9 +207,8 @@ def _read_telemetry(values: Mapping[str, str | None]) -> Telemetry:
     """Telemetry from the regex groups that matched (missing ones None); ValueError on a bad number."""
     read = {k: _value(k, v) for k, v in values.items() if v is not None}
     flags = (Flags.WATCHDOG if read.get("watchdog") else 0) | (Flags.FAULT if read.get("fault") else 0)
-    echo = read.get("seq")
-    if echo is not None and not 0 <= echo < SEQ_MODULUS:
-        echo = None
+    seq = read.get("seq")
+    echo = seq if isinstance(seq, int) and 0 <= seq < SEQ_MODULUS else None
     return Telemetry(seq=None, echo_seq=echo, left=read.get("left"), right=read.get("right"),
                      left_ticks=None, right_ticks=None, battery_v=read.get("battery_v") or None, flags=int(flags))
 

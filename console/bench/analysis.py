@@ -306,8 +306,9 @@ def suggest_limits(fits: dict[str, FopdtFit | None], wheel_radius_m: float, trac
     ramp_lags = ramp_lags or {}
     lags: dict[str, tuple[float, str]] = {}
     for name, fit in fits.items():
-        if ramp_lags.get(name):
-            lags[name] = (float(ramp_lags[name]), "ramps")
+        ramp_lag = ramp_lags.get(name)
+        if ramp_lag:
+            lags[name] = (float(ramp_lag), "ramps")
         elif fit is not None and fit.lag_s > 0:
             lags[name] = (fit.lag_s, "fit")
     if not lags:

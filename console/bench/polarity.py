@@ -124,27 +124,33 @@ def check_polarity(rec: Recording, units: dict[str, object] | None = None) -> Po
     meas = {w: rec.data[f"{w}_meas_radps"] for w in WHEELS}
     dt = float(np.median(np.diff(t)))
     measured: list[tuple[float, float]] = []
-    physical: list[tuple[float, float]] | None = [] if rec.has_pose and rec.wheel_radius_m else None
+    radius = rec.wheel_radius_m
+    physical: list[tuple[float, float]] | None = [] if rec.has_pose and radius else None
     for channel in WHEELS:
         ratios, phys = [], []
         for t0, t1, t_after in pulses[channel]:
             steady = (t >= t1 - STEADY_SHARE * (t1 - t0)) & (t < t1)
             command = float(np.nanmean(cmd[channel][steady]))
             ratios.append([float(np.nanmean(meas[w][steady])) / command for w in WHEELS])
-            if physical is not None:
+            if physical is not None and radius:
                 # until the wheels have stopped again: the pulse plus the pause after it
                 window = (t >= t0) & (t <= t_after)
                 commanded_angle = float(np.sum(cmd[channel][window]) * dt)
                 travel = _wheel_travel(rec, t0, t_after)
-                phys.append([s / rec.wheel_radius_m / commanded_angle for s in travel])
-        measured.append(tuple(float(v) for v in np.mean(ratios, axis=0)))
+                if travel is not None:
+                    phys.append([s / radius / commanded_angle for s in travel])
+        measured.append(_pair(np.mean(ratios, axis=0)))
         if physical is not None:
-            physical.append(tuple(float(v) for v in np.mean(phys, axis=0)))
-    m = tuple(measured)
-    p = tuple(physical) if physical is not None else None
+            physical.append(_pair(np.mean(phys, axis=0)))
+    m = (measured[0], measured[1])
+    p = (physical[0], physical[1]) if physical is not None else None
     if p is None and rec.bench is not None and isinstance(rec.bench.get("observed"), dict):
         p = observed_response(rec.bench["observed"])      # hardware: what the operator saw
     return PolarityReport(m, p, tuple(_diagnose(m, p, units)))
+
+
+def _pair(values: np.ndarray) -> tuple[float, float]:
+    return float(values[0]), float(values[1])
 
 
 def _flip(units: dict[str, object], key: str) -> dict[str, object]:
@@ -210,7 +216,7 @@ def _diagnose(m: tuple, p: tuple | None, units: dict[str, object]) -> list[Findi
         magnitude = abs(meas_value)          # the steady measured rate: cleaner than the integrated pose
         if abs(magnitude - 1.0) > SCALE_TOLERANCE:
             key = f"trim_{channel}"
-            trim = float(units.get(key, 1.0)) / magnitude
+            trim = float(str(units.get(key, 1.0))) / magnitude
             hint = ""
             if not TRIM_RANGE[0] <= trim <= TRIM_RANGE[1]:
                 hint = " (beyond what a trim may correct: check [units] unit, gear_ratio, ticks_per_rev)"

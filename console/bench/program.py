@@ -139,7 +139,8 @@ class _Reader:
     def number(self, key: str, default: float | None = None, *, low: float = 0.0, high: float = math.inf,
                low_inclusive: bool = False) -> float:
         value = self.table.get(key, default)
-        allowed = f"a number {'>=' if low_inclusive else '>'} {low:g}" + (f" and <= {high:g}" if high < math.inf else "")
+        allowed = f"a number {'>=' if low_inclusive else '>'} {low:g}" + (
+            f" and <= {high:g}" if high < math.inf else "")
         if value is None:
             raise self.error(key, "(missing)", allowed)
         if isinstance(value, bool) or not isinstance(value, int | float) or not math.isfinite(value):
@@ -579,15 +580,17 @@ class BoundProgram:
             value = bound.wave(t[rows] - bound.t_start_s)
             partner = np.full_like(value, bound.partner)
             axis = bound.segment.axis
+            v: np.ndarray
+            omega: np.ndarray
             if axis is Axis.SPEED:
                 v, omega = value, partner
             elif axis is Axis.TURN:
                 v, omega = partner, value
             else:
                 left, right = (value, partner) if axis is Axis.LEFT else (partner, value)
-                v, omega = geometry.to_body(left, right)   # plain arithmetic: works on arrays
+                v, omega = geometry.to_body(left, right)   # type: ignore[arg-type,assignment]  # arithmetic: arrays too
             if bound.segment.bypass:
-                first[rows], second[rows] = geometry.to_wheels(v, omega)
+                first[rows], second[rows] = geometry.to_wheels(v, omega)   # type: ignore[arg-type]  # arrays too
                 wheels[rows] = True
             else:
                 first[rows], second[rows] = v, omega

@@ -165,6 +165,6 @@ def _segments(path: Path, bench: dict[str, Any] | None, t_first: float, t_last: 
                                  float(s["amplitude"]), float(s["lead_s"]), float(s["period_s"]))
                          for s in bench["segments"])
     except (KeyError, TypeError, ValueError) as error:
-        raise _fail(bench_sidecar_path(path), "segments", repr(error)[:60], "the segment list `bench` writes")
+        raise _fail(bench_sidecar_path(path), "segments", repr(error)[:60], "the segment list `bench` writes") from None
     # A run stopped early (Ctrl-C) keeps only the segments that began before its end.
     return tuple(s for s in segments if s.t_start_s < t_last)

@@ -105,9 +105,9 @@ class _Signals:
         if axis in ("left", "right"):
             req = self._wheel_request(axis)
             return (req, self.cmd_l, self.meas_l) if axis == "left" else (req, self.cmd_r, self.meas_r)
-        if not self.body:
-            return None
         r, w = rec.wheel_radius_m, rec.track_width_m
+        if r is None or w is None:
+            return None
         if axis == "speed":
             return d["v_req_mps"], d["v_mps"], 0.5 * r * (self.meas_l + self.meas_r)
         return d["omega_req_radps"], d["omega_radps"], r * (self.meas_r - self.meas_l) / w
@@ -120,13 +120,17 @@ class _Signals:
         sign = -1.0 if axis == "left" else 1.0
         return (d["v_req_mps"] + sign * half) / rec.wheel_radius_m
 
-    def derivative(self, axis: str, which: str, order: int) -> np.ndarray | None:
+    def series(self, axis: str) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """`axis()` for an axis it has (callers pick those first)."""
+        signals = self.axis(axis)
+        if signals is None:
+            raise ValueError(f"no {axis} signals: the recording lacks the robot's geometry")
+        return signals
+
+    def derivative(self, axis: str, which: str, order: int) -> np.ndarray:
         key = (axis, which, order)
         if key not in self._deriv:
-            signals = self.axis(axis)
-            if signals is None:
-                return None
-            self._deriv[key] = analysis.derivative(self.t, signals[1 if which == "cmd" else 2], order)
+            self._deriv[key] = analysis.derivative(self.t, self.series(axis)[1 if which == "cmd" else 2], order)
         return self._deriv[key]
 
 
@@ -166,7 +170,7 @@ def _segment_report(sig: _Signals, seg: Segment) -> SegmentReport:
     t = sig.t
     rows = (t >= seg.t_start_s) & (t < seg.t_end_s)
     axis = seg.axis if sig.axis(seg.axis) is not None else "left"
-    req, cmd, meas = sig.axis(axis)
+    req, cmd, meas = sig.series(axis)
     metrics = []
     edges = _edges(seg)
     for i, edge in enumerate(edges):
@@ -205,7 +209,8 @@ def analyze(rec: Recording, speed_error_mps: float | None = None) -> Report:
     fits = {w: analysis.fit_fopdt(rec.t, rec.data[f"{w}_cmd_radps"], rec.data[f"{w}_meas_radps"])
             for w in ("left", "right")}
     limits = None
-    if sig.body:
+    radius, track = rec.wheel_radius_m, rec.track_width_m
+    if radius is not None and track is not None:
         if speed_error_mps is None:
             speed_error_mps = (DEFAULT_SPEED_ERROR_SHARE * rec.top_speed_mps if rec.top_speed_mps
                                else DEFAULT_SPEED_ERROR_MPS)
@@ -215,7 +220,7 @@ def analyze(rec: Recording, speed_error_mps: float | None = None) -> Report:
                 shaped &= ~((rec.t >= seg.t_start_s) & (rec.t < seg.t_end_s + 0.5))   # + the hand-back ramp
         lags = {w: analysis.ramp_lag(rec.t, rec.data[f"{w}_cmd_radps"], rec.data[f"{w}_meas_radps"], shaped)
                 for w in ("left", "right")}
-        limits = analysis.suggest_limits(fits, rec.wheel_radius_m, rec.track_width_m, speed_error_mps, lags)
+        limits = analysis.suggest_limits(fits, radius, track, speed_error_mps, lags)
     polarity = check_polarity(rec, _profile_table(rec, "units"))
     return Report(str(rec.path), rec.program, float(rec.t[-1] - rec.t[0]), int(rec.t.size), segments, fits,
                   limits, polarity, tuple(notes), _profile_table(rec, "limits"))
@@ -268,7 +273,7 @@ def _figures(rec: Recording, report: Report, out: Path) -> list[Path]:
 
     fig, axs = plt.subplots(len(axes_shown), 1, figsize=(11, 2.3 * len(axes_shown)), sharex=True, squeeze=False)
     for ax, name in zip(axs[:, 0], axes_shown):
-        req, cmd, meas = sig.axis(name)
+        req, cmd, meas = sig.series(name)
         for values, label, style in ((req, "request", ":"), (cmd, "command", "-"), (meas, "measured", "-")):
             ax.plot(*_decimate(t, values), style, lw=0.8, label=label)
         ax.set_ylabel(f"{name} ({UNITS[name]})")
@@ -291,7 +296,7 @@ def _figures(rec: Recording, report: Report, out: Path) -> list[Path]:
 
     fig, axs = plt.subplots(2, 1, figsize=(11, 4.6), sharex=True)
     if sig.body:
-        _, cmd, meas = sig.axis("speed")
+        _, cmd, meas = sig.series("speed")
         axs[0].plot(*_decimate(t, cmd - meas), lw=0.8, label="speed (m/s)")
         if report.limits is not None:
             for sign in (1, -1):
@@ -355,7 +360,7 @@ def markdown(report: Report) -> str:
             lines.append(f"| {wheel} | {fit.gain:.3f} | {fit.tau_s:.4f} | {fit.dead_time_s:.4f} | {fit.r2:.4f} | "
                          f"{fit.nrmse:.4f} |")
     if report.limits is not None:
-        lines += ["", "## Suggested limits", "", "```toml", report.limits_snippet().rstrip(), "```"]
+        lines += ["", "## Suggested limits", "", "```toml", (report.limits_snippet() or "").rstrip(), "```"]
     if report.polarity is not None:
         lines += ["", "## Polarity and encoder check", ""]
         lines += [f"- **{f.kind}**: {f.text}" for f in report.polarity.findings]

@@ -12,7 +12,7 @@ import enum
 import json
 import time
 from dataclasses import dataclass
-from datetime import datetime, timezone
+from datetime import UTC, datetime
 from pathlib import Path
 from typing import Any
 
@@ -21,10 +21,10 @@ from console.core.safety import SafetyState, StopCause
 from console.core.step import Snapshot
 from console.errors import InputError, LinkLost, OutputError
 from console.files import reason, write_atomic
+from console.links import is_simulated, open_link
 from console.loop import ControlLoop, VirtualClock, WallClock
 from console.profile import Profile
 from console.record import Recorder, sidecar_path
-from console.links import is_simulated, open_link
 from shaping.shaper import StopKind
 
 FORMAT = "diffdeck bench 1"
@@ -73,7 +73,7 @@ def bench_sidecar_path(csv_path: str | Path) -> Path:
 
 
 def _recording_path(out_dir: Path, profile: Profile, program: Program) -> Path:
-    stamp = datetime.now(timezone.utc).strftime("%Y%m%dT%H%M%SZ")
+    stamp = datetime.now(UTC).strftime("%Y%m%dT%H%M%SZ")
     base = f"bench-{profile.path.stem}-{program.name}-{stamp}"
     path, n = out_dir / f"{base}.csv", 1
     while path.exists():
@@ -145,7 +145,7 @@ class BenchRun:
             if snap.state is not SafetyState.ARMED:          # a stop from elsewhere (link, watchdog, operator)
                 self._cause, self._phase = snap.cause, Phase.ENDING
                 return
-            k = int(round((t - self._t0) / self.period_s))
+            k = int(round((t - (self._t0 or 0.0)) / self.period_s))
             samples = self.samples
             if k >= samples.t_s.size:
                 self.loop.stop(StopKind.CONTROLLED, StopCause.PROGRAM_END)

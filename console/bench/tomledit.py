@@ -10,6 +10,7 @@ from __future__ import annotations
 import math
 import re
 import tomllib
+from collections.abc import Mapping
 
 _HEADER = re.compile(r"^\s*\[([^\[\]]+)\]\s*(#.*)?$")
 _KEY = re.compile(r"^(\s*)([A-Za-z0-9_-]+)(\s*=\s*)([^#]*?)(\s*#.*)?$")
@@ -29,7 +30,7 @@ def toml_value(value: object) -> str:
     raise TypeError(f"cannot write {type(value).__name__} to TOML")
 
 
-def edit_toml(text: str, changes: dict[tuple[str, str], object]) -> str:
+def edit_toml(text: str, changes: Mapping[tuple[str, str], object]) -> str:
     """Set (section, key) -> value in TOML text; sections must exist or are appended at the end."""
     lines = text.splitlines()
     pending = dict(changes)

@@ -30,7 +30,7 @@ import numpy as np
 from console.bench.program import Program, parse_program
 from console.bench.recording import read_recording
 from console.profile import Profile
-from shaping.ramp import plan_ramp
+from shaping.ramp import AxisLimits, plan_ramp
 from shaping.shaper import speed_limits, turn_limits
 
 SPEED_SHARE = 0.25        # of the top speed: slow, as the procedure asks, so the wheels do not slip
@@ -118,7 +118,7 @@ def square_program(profile: Profile, side_m: float, clockwise: bool) -> Program:
     return parse_program(data, f"built-in program {name!r}", "built-in")
 
 
-def _hold_time(rate: float, travel: float, axis_limits: object) -> float:
+def _hold_time(rate: float, travel: float, axis_limits: AxisLimits) -> float:
     """How long to hold the request `rate` so that the ramp up, the hold and the ramp down cover `travel`."""
     up = plan_ramp(0.0, 0.0, rate, axis_limits)
     down = plan_ramp(rate, 0.0, 0.0, axis_limits)

@@ -4,6 +4,7 @@ surface plus one line in `make_codec` (see DEVELOPERS.md)."""
 
 from __future__ import annotations
 
+from collections.abc import Sequence
 from dataclasses import dataclass, fields
 from typing import TYPE_CHECKING, Protocol
 
@@ -23,7 +24,7 @@ class Codec(Protocol):
 
     def encode(self, frame: WheelCommand | StopCommand | Heartbeat) -> bytes: ...   # b"": nothing to send
 
-    def feed(self, data: bytes) -> list[Frame]: ...
+    def feed(self, data: bytes) -> Sequence[Frame]: ...
 
 
 @dataclass(frozen=True, slots=True)
@@ -48,7 +49,7 @@ class DecoderCounts:
 
 def make_codec(link: LinkConfig) -> Codec:
     """The frame codec the profile's link asks for (diffdeck protocol or the firmware's template)."""
-    if link.protocol == "template":
+    if link.protocol == "template" and link.template is not None:
         from console.templates import TemplateCodec
 
         return TemplateCodec(link.template)

@@ -134,6 +134,15 @@ class SafetyMachine:
         """Armed or stopping: motion frames go out (the robot may be moving)."""
         return self.state in _MOVING
 
+    @property
+    def category(self) -> int:
+        """The stop category the stop in force sends (0, the strongest, should a stop ever lack its kind)."""
+        return STOP_CATEGORY[self.kind] if self.kind is not None else 0
+
+    @property
+    def cause_text(self) -> str:
+        return self.cause.value if self.cause is not None else "no cause"
+
     def watches(self, cause: StopCause) -> bool:
         return self.state in CAUSES[cause].watched_in
 
@@ -174,8 +183,8 @@ def transition_table_markdown() -> str:
         where = "any" if every else state.value
         lines.append(f"| {where} | {trigger.value} | {rule.guard.value} | {rule.target.value} | {rule.note} |")
     lines += ["", "| stop cause | stop kind | watched while | detected by |", "|---|---|---|---|"]
-    for cause, rule in CAUSES.items():
-        kind = rule.kind.value if rule.kind is not None else "as asked"
-        states = ", ".join(s.value for s in SafetyState if s in rule.watched_in)
-        lines.append(f"| {cause.value} | {kind} | {states} | {rule.detected_by} |")
+    for cause, cause_rule in CAUSES.items():
+        kind = cause_rule.kind.value if cause_rule.kind is not None else "as asked"
+        states = ", ".join(s.value for s in SafetyState if s in cause_rule.watched_in)
+        lines.append(f"| {cause.value} | {kind} | {states} | {cause_rule.detected_by} |")
     return "\n".join(lines) + "\n"

@@ -15,8 +15,16 @@ from typing import TYPE_CHECKING
 
 from console.core.codec import make_codec
 from console.core.link import LinkMonitor, LinkStats
-from console.core.safety import (CAUSES, KIND_RANK, STOP_CATEGORY, SafetyMachine, SafetyState, StopCause,
-                                 Transition, Trigger)
+from console.core.safety import (
+    CAUSES,
+    KIND_RANK,
+    STOP_CATEGORY,
+    SafetyMachine,
+    SafetyState,
+    StopCause,
+    Transition,
+    Trigger,
+)
 from console.protocol import Flags, Heartbeat, StopCommand, Telemetry, WheelCommand, flag_names, next_seq
 from shaping.envelope import Bound
 from shaping.odometry import arc_step
@@ -103,7 +111,7 @@ class LoopCore:
         self._ui_timeout = ui_timeout_s
         self._seq = 0
         self._bypass: tuple[float, float] | None = None
-        self._op_seen: float | None = None
+        self._op_seen = 0.0
         self._ui_seen = 0.0
         self._meas: tuple[float, float] | None = None
         self._battery: float | None = None
@@ -170,8 +178,8 @@ class LoopCore:
     def _step(self, now: float, dt: float, inputs: Inputs, received: bytes) -> bytes:
         if not self._started:
             self._started = True
-            self._ui_seen = now
-        if inputs.operator_beat or self._op_seen is None:
+            self._ui_seen = self._op_seen = now
+        if inputs.operator_beat:
             self._op_seen = now
         if inputs.ui_beat:
             self._ui_seen = now
@@ -199,8 +207,7 @@ class LoopCore:
         if safety.state is SafetyState.STOPPING and shaped.settled and shaped.v_mps == 0.0 \
                 and shaped.omega_radps == 0.0:
             safety.fire(Trigger.SETTLED)
-            self._log(now, f"stopped ({safety.cause.value}); stop category {STOP_CATEGORY[safety.kind]} sent",
-                      "safety")
+            self._log(now, f"stopped ({safety.cause_text}); stop category {safety.category} sent", "safety")
         cmd = self._units.to_motor(shaped.left_radps, shaped.right_radps)
         data = self._frame(now, cmd)
         self._note_bound(now, shaped.bound)
@@ -288,7 +295,7 @@ class LoopCore:
         if state is SafetyState.ARMED or state is SafetyState.STOPPING:
             frame = WheelCommand(seq, *cmd)
         elif state is SafetyState.STOPPED:
-            frame = StopCommand(seq, STOP_CATEGORY[self.safety.kind])
+            frame = StopCommand(seq, self.safety.category)
         else:
             frame = Heartbeat(seq)
         data = self.codec.encode(frame)

@@ -3,8 +3,8 @@
 Behaviour (what PROTOCOL.md asks of real firmware; the flags are `console.protocol.Flags`):
 - Power-up: STOPPED, motors at zero, motion watchdog not armed.
 - Release: a valid W frame with both wheels exactly 0 clears STOPPED, WATCHDOG and POWER_OFF and arms the watchdog
-  (never while FAULT or ESTOP is set). The firmware never restarts into motion by itself: a W frame with motion while STOPPED
-  is ignored (it still counts as received and is echoed).
+  (never while FAULT or ESTOP is set). The firmware never restarts into motion by itself: a W frame with motion while
+  STOPPED is ignored (it still counts as received and is echoed).
 - Running: W frames set the wheel commands (firmware unit -> wheel rad/s); SATURATED is set while a command exceeds
   the motors' top rate (the plant clamps it).
 - Watchdog: no valid W frame for more than link.watchdog_s while running -> WATCHDOG and STOPPED latched, the
@@ -130,7 +130,8 @@ class SimRobot:
             self._flags &= ~_FAULT
 
     def set_estop(self, open_circuit: bool) -> None:
-        """Open (or close again) the emergency-stop circuit: ESTOP set, wheels to zero at once, no release while open."""
+        """Open (or close again) the emergency-stop circuit: ESTOP set, wheels to zero at once, no release while
+        open."""
         if open_circuit:
             self._flags |= _ESTOP
             self._halt()
@@ -182,14 +183,13 @@ class SimRobot:
                 self._apply(frame)
 
     def _apply(self, frame: Frame) -> None:
-        kind = type(frame)
-        if kind is Telemetry:
+        if isinstance(frame, Telemetry):
             return                           # not meant for a robot
         self._echo_seq = frame.seq           # every valid console frame is echoed (round-trip time)
-        if kind is WheelCommand:
+        if isinstance(frame, WheelCommand):
             self._last_command_s = self.t_s
             self._command(*self._units.from_motor(frame.left, frame.right), frame.left == 0.0 and frame.right == 0.0)
-        elif kind is StopCommand:
+        elif isinstance(frame, StopCommand):
             if frame.category == 0:
                 self._halt()
             else:

@@ -9,7 +9,8 @@ Stop keys are App-level priority bindings: they act in every state and above eve
 from __future__ import annotations
 
 import math
-from typing import TYPE_CHECKING, Callable
+from collections.abc import Callable
+from typing import TYPE_CHECKING
 
 from textual.app import App, ComposeResult
 from textual.binding import Binding
@@ -23,7 +24,16 @@ from console.ui.screens import CautionScreen, HelpScreen
 from console.ui.signals import exit_on_ending_signals
 from console.ui.trace import KeyWireTrace
 from console.ui.widgets import (
-    AxisGauge, EventLog, HintBar, KeyCard, LimitPanel, LinkPanel, SafetyBanner, TitleBar, TopView, TracePlot,
+    AxisGauge,
+    EventLog,
+    HintBar,
+    KeyCard,
+    LimitPanel,
+    LinkPanel,
+    SafetyBanner,
+    TitleBar,
+    TopView,
+    TracePlot,
     WheelPanel,
 )
 from shaping.shaper import StopKind

@@ -37,7 +37,8 @@ class DriveSettings:
 
     @staticmethod
     def for_envelope(envelope: Envelope, **overrides: object) -> DriveSettings:
-        """Default steps: 1/20 of the top speed and 1/10 of the top turn rate (common practice: ~10-20 presses to full)."""
+        """Default steps: 1/20 of the top speed and 1/10 of the top turn rate (common practice: ~10-20 presses to
+        full)."""
         defaults: dict[str, object] = {
             "speed_step_mps": round(envelope.top_speed_mps / 20.0, 3),
             "turn_step_radps": round(envelope.top_turn_rate_radps / 10.0, 3),

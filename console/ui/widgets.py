@@ -239,11 +239,15 @@ class AxisGauge(Panel):
         text = Rows()
         wide = width >= 64
         text.append(f"{self.title} {self.unit}".ljust(14 if wide else 11), "bold")
-        text.append("▼ req " if wide else "▼"), text.append(signed(req, d), self.style_of("gauge--req"))
+        text.append("▼ req " if wide else "▼")
+        text.append(signed(req, d), self.style_of("gauge--req"))
         if abs(target - req) > 10 ** -d / 2:
-            text.append("  ▽ target " if wide else " ▽"), text.append(signed(target, d), self.style_of("gauge--target"))
-        text.append("  █ out " if wide else " █"), text.append(signed(out, d), self.style_of("gauge--out"))
-        text.append("  ▲ meas " if wide else " ▲"), text.append(signed(meas, d) + _age(stale_s, meas), meas_style)
+            text.append("  ▽ target " if wide else " ▽")
+            text.append(signed(target, d), self.style_of("gauge--target"))
+        text.append("  █ out " if wide else " █")
+        text.append(signed(out, d), self.style_of("gauge--out"))
+        text.append("  ▲ meas " if wide else " ▲")
+        text.append(signed(meas, d) + _age(stale_s, meas), meas_style)
         text.append("\n")
 
         markers = [" "] * width
@@ -257,16 +261,21 @@ class AxisGauge(Panel):
         text.append("\n")
 
         zero, c_lo, c_hi, c_out = (_col(v, lo, hi, width) for v in (0.0, bound_lo, bound_hi, out))
-        bar, bar_styles = [], []
+        bar: list[str] = []
+        bar_styles: list[Style | None] = []
         for c in range(width):
             if c in (c_lo, c_hi):
-                bar.append("┃"), bar_styles.append(self.style_of("gauge--bound"))
+                bar.append("┃")
+                bar_styles.append(self.style_of("gauge--bound"))
             elif c < c_lo or c > c_hi:
-                bar.append("░"), bar_styles.append(self.style_of("gauge--nogo"))
+                bar.append("░")
+                bar_styles.append(self.style_of("gauge--nogo"))
             elif min(zero, c_out) <= c <= max(zero, c_out) and abs(out) > 10 ** -(d + 1) / 2:
-                bar.append("█"), bar_styles.append(self.style_of("gauge--out"))
+                bar.append("█")
+                bar_styles.append(self.style_of("gauge--out"))
             else:
-                bar.append("┼" if c == zero else "─"), bar_styles.append(None)
+                bar.append("┼" if c == zero else "─")
+                bar_styles.append(None)
         _append_cells(text, bar, bar_styles)
         text.append("\n")
 
@@ -359,18 +368,24 @@ class WheelPanel(Panel):
             text.append("\n")
             zero, c_lo, c_hi, c_cmd = (_col(v, -scale, scale, width) for v in (0.0, -bound, bound, radps))
             c_meas = None if meas is None else _col(meas, -scale, scale, width)
-            cells, styles = [], []
+            cells: list[str] = []
+            styles: list[Style | None] = []
             for c in range(width):
                 if c == c_meas:
-                    cells.append("▲"), styles.append(meas_style)
+                    cells.append("▲")
+                    styles.append(meas_style)
                 elif c in (c_lo, c_hi):
-                    cells.append("┃"), styles.append(self.style_of("wheel--bound"))
+                    cells.append("┃")
+                    styles.append(self.style_of("wheel--bound"))
                 elif c < c_lo or c > c_hi:
-                    cells.append("░"), styles.append(self.style_of("wheel--nogo"))
+                    cells.append("░")
+                    styles.append(self.style_of("wheel--nogo"))
                 elif min(zero, c_cmd) <= c <= max(zero, c_cmd) and abs(radps) >= 0.005:
-                    cells.append("▆"), styles.append(self.style_of("wheel--cmd"))
+                    cells.append("▆")
+                    styles.append(self.style_of("wheel--cmd"))
                 else:
-                    cells.append("┼" if c == zero else "─"), styles.append(None)
+                    cells.append("┼" if c == zero else "─")
+                    styles.append(None)
             _append_cells(text, cells, styles)
             if i == 0:
                 text.append("\n")
@@ -490,7 +505,7 @@ class TracePlot(Panel):
         label_w = 7
         plot_rows = max((height - 1) // 2, 1)
         text = Rows()
-        text.append("last %gs  " % self.span_s, self.style_of("plot--label"))
+        text.append(f"last {self.span_s:g}s  ", self.style_of("plot--label"))
         for name, style in (("req", "plot--req"), ("out", "plot--out"), ("meas", "plot--meas")):
             text.append("━━ ", self.style_of(style))
             text.append(f"{name}  ")
@@ -581,9 +596,9 @@ class TopView(Panel):
 
         span_x, span_y = half_w_dots * m_per_dot, half_h_dots * m_per_dot
         for gx in np.arange(math.floor((x0 - span_x) / grid_m), math.ceil((x0 + span_x) / grid_m) + 1) * grid_m:
-            canvas.vline(to_dots(np.array(gx), np.array(0.0))[0], self._GRID, every=4)
+            canvas.vline(float(to_dots(np.array(gx), np.array(0.0))[0]), self._GRID, every=4)
         for gy in np.arange(math.floor((y0 - span_y) / grid_m), math.ceil((y0 + span_y) / grid_m) + 1) * grid_m:
-            canvas.hline(to_dots(np.array(0.0), np.array(gy))[1], self._GRID, every=4)
+            canvas.hline(float(to_dots(np.array(0.0), np.array(gy))[1]), self._GRID, every=4)
         if trail.size:
             tx, ty = to_dots(trail[:, 0], trail[:, 1])
             canvas.polyline(tx, ty, self._TRAIL)

@@ -18,9 +18,9 @@ from console.bench.polarity import OBSERVATIONS, has_pulses, record_observations
 from console.bench.program import BUILTINS, BoundProgram, resolve_program
 from console.bench.recording import read_recording
 from console.bench.run import STOP_WAIT_S, BenchResult, BenchRun
+from console.core.safety import StopCause
 from console.errors import InputError, LinkLost, RobotFault
 from console.interrupts import Interrupts
-from console.core.safety import StopCause
 from console.links import is_simulated
 from console.profile import load_profile
 from shaping.shaper import StopKind
@@ -100,9 +100,10 @@ def run(args: argparse.Namespace) -> int:
                           "'left forwards' and 'right forwards' pulses.")
     else:
         console.print(CAUTION)
-    ui_timeout = None
+    ui_timeout: float | None = None
     if args.screen:
-        from console.ui.bench_screen import UI_TIMEOUT_S as ui_timeout
+        from console.ui.bench_screen import UI_TIMEOUT_S
+        ui_timeout = UI_TIMEOUT_S
     bench = BenchRun(profile, program, out_dir=out, link_url=url, fast=False if args.screen else None,
                      ui_timeout_s=ui_timeout)
     console.print(f"bench: {program.name} ({bench.bound.duration_s:g} s) on {profile.name} over {bench.url}"

@@ -18,9 +18,9 @@ from rich.console import Console
 
 from console.bench.run import BenchRun
 from console.bench.tomledit import edit_toml
-from console.files import write_atomic
 from console.bench.umbmark import UmbmarkResult, corrected_values, return_error, square_program, umbmark
 from console.errors import InputError, LinkLost
+from console.files import write_atomic
 from console.links import is_simulated
 from console.profile import Profile, load_profile
 
@@ -52,7 +52,7 @@ def parse_end_position(text: str) -> tuple[float, float]:
         x, y = (float(part) for part in parts)
     except ValueError:
         raise InputError("calibrate", "end position", text.strip() or "(none)",
-                         "two numbers in m: forward and leftward offset from the start mark, e.g. 0.12 -0.05")
+                         "two numbers in m: forward and leftward offset from the start mark, e.g. 0.12 -0.05") from None
     if not (math.isfinite(x) and math.isfinite(y)) or max(abs(x), abs(y)) > MAX_SIDE_M:
         raise InputError("calibrate", "end position", text.strip(), f"finite offsets within {MAX_SIDE_M:g} m")
     return x, y
@@ -126,7 +126,7 @@ def run(args: argparse.Namespace) -> int:
         square_program(profile, args.side_m, True)
     except ValueError:
         raise InputError("command line", "--side-m", args.side_m, "long enough to reach the calibration speed and "
-                         "stop again with this profile's limits")
+                         "stop again with this profile's limits") from None
     console = Console(stderr=True)
     console.print(CAUTION)
     result = _runs(console, profile, args, on_sim, runs)

@@ -18,19 +18,19 @@ import threading
 import time
 from typing import TYPE_CHECKING
 
-from console.errors import InputError
 from console.core.safety import StopCause
+from console.errors import InputError
+from console.links import is_simulated
 from console.loop import WallClock
 from console.profile import Profile, load_profile
 from console.record import default_path
-from console.links import is_simulated
 from console.session import bring_to_rest
 from console.ui.driving import DriveMode, DriveSettings
 from console.ui.trace import KeyWireTrace
 from shaping.shaper import StopKind
 
 if TYPE_CHECKING:
-    from console.loop_process import LoopProcess
+    pass
 
 NAME = "drive"
 HELP = "open the operator console: arm, drive and stop the robot (or the simulated one) with live gauges"
@@ -105,7 +105,7 @@ def profile_for_link(args: argparse.Namespace, profile: Profile) -> Profile:
 
 
 def run(args: argparse.Namespace) -> int:
-    from console.loop_process import LoopProcess   # the loop's own process: the UI cannot make it late
+    from console.loop_process import LoopProcess  # the loop's own process: the UI cannot make it late
     from console.ui.app import RENDER_HZ, DriveApp  # Textual is imported only when the console really opens
 
     profile = profile_for_link(args, load_profile(args.profile))

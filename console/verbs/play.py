@@ -18,15 +18,15 @@ import bisect
 import time
 from pathlib import Path
 
-from console.errors import InputError, LinkLost, LoopFailure, OutputError, RobotFault
-from console.interrupts import Interrupts
 from console.core.safety import SafetyState, StopCause
 from console.core.step import Snapshot
-from console.protocol import flag_names
+from console.errors import InputError, LinkLost, LoopFailure, OutputError, RobotFault
+from console.interrupts import Interrupts
+from console.links import is_simulated, open_link
 from console.loop import ControlLoop, VirtualClock, WallClock
 from console.profile import load_profile
+from console.protocol import flag_names
 from console.record import Recorder, default_path, sidecar_path
-from console.links import is_simulated, open_link
 from console.verbs.shape import TIME_EPS_S, Requests, read_requests
 from shaping.shaper import StopKind
 
@@ -78,6 +78,8 @@ class _Player:
         self.trace_s = 0.0
 
     def on_cycle(self, t_s: float) -> None:
+        if self.loop is None:
+            return
         if self.start_s is None:
             if not self.go:
                 return
@@ -163,9 +165,10 @@ def run(args: argparse.Namespace) -> int:
     record = Path(args.record) if args.record else default_path(profile)
     try:
         recorder = Recorder(record, profile, url)
-    except OSError as error:
+    except OSError as open_error:
         transport.close()
-        raise InputError("command line", "--record", str(record), f"cannot be written ({error.strerror})") from None
+        raise InputError("command line", "--record", str(record),
+                         f"cannot be written ({open_error.strerror})") from None
     player = _Player(requests)
     loop = ControlLoop(profile, transport, VirtualClock() if args.fast else WallClock(), sim=sim,
                        recorder=recorder, url=url, on_cycle=player.on_cycle)
@@ -255,7 +258,7 @@ def _stop(session: _Run, cause: StopCause, url: str, record: Path) -> Exception 
             loop.stop(StopKind.IMMEDIATE, StopCause.OPERATOR)
     error = _fault_error(snapshot, url, record)
     if error is None:
-        _say(f"play: stopped ({snapshot.cause.value})")
+        _say(f"play: stopped ({snapshot.cause.value if snapshot.cause is not None else 'no cause'})")
     return error
 
 

@@ -53,9 +53,10 @@ def run(args: argparse.Namespace) -> int:
 
         for s in report.segments:
             m = s.step
-            table.add_row(s.name, f"{s.axis} ({s.unit})", fmt(m and m.dead_time_s), fmt(m and m.rise_time_s),
-                          fmt(m and m.overshoot_pct, ".1f"), fmt(m and m.settling_time_s),
-                          fmt(m and m.steady_state_error), fmt(s.peak_accel), fmt(s.peak_jerk))
+            table.add_row(s.name, f"{s.axis} ({s.unit})", fmt(m.dead_time_s if m else None),
+                          fmt(m.rise_time_s if m else None), fmt(m.overshoot_pct if m else None, ".1f"),
+                          fmt(m.settling_time_s if m else None), fmt(m.steady_state_error if m else None),
+                          fmt(s.peak_accel), fmt(s.peak_jerk))
         console.print(table)
         for wheel, fit in report.fits.items():
             if fit is not None:

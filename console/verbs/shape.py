@@ -11,7 +11,7 @@ import argparse
 import math
 from dataclasses import dataclass
 from pathlib import Path
-from typing import TextIO
+from typing import IO
 
 from console.errors import DiffdeckError, InputError
 from console.files import PLAIN_NUMBER, STDOUT, atomic_output, check_output, read_csv_rows
@@ -29,7 +29,7 @@ OUTPUT_HEADER = ("t_s", "v_req_mps", "omega_req_radps", "v_mps", "omega_radps", 
                  "left_radps", "right_radps", "bound")
 DEFAULT_RATE_HZ = 100.0
 TIME_EPS_S = 1e-9  # a request at t is in force from the sample at t, whatever the rounding of k / rate
-BOUND_TEXT = {None: "", **{bound: bound.value for bound in Bound}}
+BOUND_TEXT: dict[Bound | None, str] = {None: "", **{bound: bound.value for bound in Bound}}
 # One %-format per row is several times faster than csv.writer on floats, and 10 significant digits (far below a
 # micrometre per second) read better than 17. Bound names hold no comma or quote, so no CSV quoting is needed.
 ROW_FORMAT = "%.10g," * (len(OUTPUT_HEADER) - 1) + "%s\n"
@@ -111,7 +111,7 @@ def _settle_allowance_s(profile: Profile) -> float:
     return 4.0 * (speed + turn) / share + 1.0
 
 
-def shape(profile: Profile, requests: Requests, out: TextIO, *, rate_hz: float = DEFAULT_RATE_HZ,
+def shape(profile: Profile, requests: Requests, out: IO[str], *, rate_hz: float = DEFAULT_RATE_HZ,
           mode: Mode = Mode.SYNCED, until_s: float | None = None) -> int:
     """Write one CSV row per period from t = 1 / rate_hz; returns the number of cycles.
 
