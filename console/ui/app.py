@@ -13,13 +13,13 @@ from collections.abc import Callable
 from typing import TYPE_CHECKING
 
 from textual.app import App, ComposeResult
-from textual.binding import Binding
 from textual.containers import Horizontal, Vertical
 from textual.screen import Screen
 
 from console.core.safety import SafetyState, StopCause
 from console.links import is_simulated
 from console.ui.driving import DriveInput, DriveMode, DriveSettings
+from console.ui.keys import APP_BINDINGS, SCREEN_BINDINGS
 from console.ui.screens import CautionScreen, HelpScreen
 from console.ui.signals import exit_on_ending_signals
 from console.ui.trace import KeyWireTrace
@@ -70,24 +70,7 @@ def _wheels_word(snap: Snapshot) -> str:
 class DriveScreen(Screen[None]):
     """The main screen. Driving keys live here, so they are dead while an overlay is open; stops are on the app."""
 
-    BINDINGS = [
-        Binding("a", "arm_open", "arm (1/2)", show=False),
-        Binding("enter", "arm_confirm", "arm (2/2)", show=False),
-        Binding("up", "nudge(1, 0)", "faster", show=False),
-        Binding("down", "nudge(-1, 0)", "slower", show=False),
-        Binding("left", "nudge(0, 1)", "turn left", show=False),
-        Binding("right", "nudge(0, -1)", "turn right", show=False),
-        *(Binding(str(n), f"preset({n})", f"speed {n * 10} %", show=False) for n in range(1, 10)),
-        Binding("0", "zero('speed')", "speed 0", show=False),
-        Binding("c", "zero('turn')", "turn 0", show=False),
-        Binding("z", "zero('both')", "all 0", show=False),
-        Binding("left_square_bracket", "steps(0.5)", "finer steps", show=False),
-        Binding("right_square_bracket", "steps(2.0)", "coarser steps", show=False),
-        Binding("m", "toggle_mode", "hold/latched", show=False),
-        Binding("k", "keepalive", "still here", show=False),
-        Binding("r", "reconnect_open", "reconnect (1/2)", show=False),
-        Binding("question_mark,f1", "help", "help", show=False),
-    ]
+    BINDINGS = SCREEN_BINDINGS
 
     def __init__(self, profile: Profile) -> None:
         super().__init__(id="drive")
@@ -254,11 +237,7 @@ class DriveApp(App[int]):
     HORIZONTAL_BREAKPOINTS = [(0, "-narrow"), (100, "-wide")]
     VERTICAL_BREAKPOINTS = [(0, "-short"), (34, "-tall")]
     ENABLE_COMMAND_PALETTE = False
-    BINDINGS = [
-        Binding("space", "stop('controlled')", "controlled stop", priority=True),
-        Binding("x", "stop('fast')", "fast stop", priority=True),
-        Binding("q,ctrl+c", "quit_console", "stop and quit", priority=True),
-    ]
+    BINDINGS = APP_BINDINGS
 
     def __init__(self, loop: ControlLoop | LoopProcess, profile: Profile, clock: Clock, settings: DriveSettings, *,
                  real_link: bool, render_hz: float = RENDER_HZ, trace: KeyWireTrace | None = None,

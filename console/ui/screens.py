@@ -1,4 +1,5 @@
-"""The overlays: the help list (every binding) and the safety cautions shown before driving a real robot."""
+"""The overlays: the help list (every binding, from console.ui.keys) and the safety cautions before driving a real
+robot."""
 
 from __future__ import annotations
 
@@ -11,34 +12,7 @@ from textual.containers import Vertical, VerticalScroll
 from textual.screen import ModalScreen
 from textual.widgets import Static
 
-# Every binding of the console, grouped as the help overlay shows them. tests check that each key bound on the app
-# or the drive screen appears here, so the list cannot drift from the code.
-HELP_GROUPS: tuple[tuple[str, tuple[tuple[str, str], ...]], ...] = (
-    ("Stopping — these work in every state and on every screen, this one included", (
-        ("space", "controlled stop: both axes ramp down within the normal limits, then hold zero"),
-        ("x", "fast stop: ramp down with the profile's stop deceleration and stop jerk"),
-        ("q / ctrl+c", "controlled stop, then quit the console"),
-    )),
-    ("Arming", (
-        ("a", "open the arming window (2 s): nothing moves yet"),
-        ("enter", "inside the window: arm. The request starts at zero; after any stop, arm again"),
-        ("r", "after a link loss: reopen the same link (enter within 2 s confirms); arm again afterwards"),
-    )),
-    ("Driving (armed only)", (
-        ("up / down", "speed request + / − one step"),
-        ("left / right", "turn-rate request: left (counter-clockwise) / right, one step"),
-        ("1 … 9", "speed preset: 10 % … 90 % of the envelope's top speed (reverse if reversing)"),
-        ("0", "speed request to zero (turn rate kept)"),
-        ("c", "turn-rate request to zero (speed kept)"),
-        ("z", "both requests to zero"),
-        ("[ / ]", "finer / coarser nudge steps (half / double)"),
-    )),
-    ("Modes and view", (
-        ("m", "switch hold ↔ latched mode (the request goes to zero on every switch)"),
-        ("k", "still here: latched mode stops the robot (controlled) after the keep-alive time without a key"),
-        ("? / f1", "this help; escape or ? closes it"),
-    )),
-)
+from console.ui.keys import DRIVE_KEYS
 
 HELP_NOTES = (
     "Hold mode: the request lives only while driving keys keep arriving. Most terminals send no key-release "
@@ -69,12 +43,13 @@ CAUTIONS = (
 def help_text(deadman_s: float) -> Group:
     """The help overlay's content: a two-column table per group (descriptions wrap under themselves), then notes."""
     parts: list[Table | Text] = []
-    for title, rows in HELP_GROUPS:
+    for title in dict.fromkeys(row.group for row in DRIVE_KEYS):
         table = Table.grid(padding=(0, 2))
         table.add_column(no_wrap=True, style="bold", min_width=12)
         table.add_column(ratio=1)
-        for keys, what in rows:
-            table.add_row(keys, what)
+        for row in DRIVE_KEYS:
+            if row.group == title:
+                table.add_row(row.keys, row.full)
         parts += [Text(title, style="bold underline"), table, Text("")]
     notes = Table.grid(padding=(0, 1))
     notes.add_column(no_wrap=True)

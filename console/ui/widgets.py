@@ -19,6 +19,7 @@ from textual.widget import Widget
 from console.protocol import flag_names
 from console.ui.bigtext import big_lines, big_width
 from console.ui.braille import BrailleCanvas
+from console.ui.keys import DRIVE_KEYS, STOPPING
 from console.ui.rows import Rows
 
 if TYPE_CHECKING:
@@ -140,20 +141,14 @@ class TitleBar(Panel):
 
 
 class HintBar(Panel):
-    """The keys that matter most, always in view; `?` opens the full list."""
-
-    HINTS = (
-        ("space", "stop"), ("x", "fast stop"), ("a ⏎", "arm"), ("?", "help"), ("↑↓", "speed"), ("←→", "turn"),
-        ("1-9", "preset"), ("m", "hold/latch"), ("k", "still here"),
-        ("q", "quit"),
-    )
+    """The keys that matter most (the bindings marked `show`), always in view; `?` opens the full list."""
 
     def on_mount(self) -> None:
-        self._update(self.HINTS)
+        self._update(tuple((row.shown, row.short) for row in DRIVE_KEYS if row.hint))
 
     def paint(self, width: int, height: int) -> Rows:
         text = Rows()
-        for key, what in self.HINTS:
+        for key, what in self._shown or ():
             text.append(f" {key} ", "bold reverse")
             text.append(f" {what} ")
         return text
@@ -613,29 +608,16 @@ class TopView(Panel):
 
 
 class KeyCard(Panel):
-    """A short binding reference for big terminals (the help overlay has the full list)."""
-
-    ROWS = (
-        ("a then ⏎", "arm (within 2 s)"),
-        ("space", "controlled stop"),
-        ("x", "fast stop"),
-        ("↑ / ↓", "speed + / − step"),
-        ("← →", "turn left / right"),
-        ("1 … 9", "speed 10 … 90 %"),
-        ("0 / c / z", "speed 0 / turn 0 / all 0"),
-        ("[ ]", "finer / coarser steps"),
-        ("m", "hold ↔ latched"),
-        ("k", "still here (latched)"),
-        ("r then ⏎", "reconnect a lost link"),
-        ("? / F1", "all keys and cautions"),
-    )
+    """A short binding reference for big terminals, from the bindings (the help overlay has the full words). The stop
+    keys are left to the hint bar right beneath, which always shows them."""
 
     def on_mount(self) -> None:
-        self._update(self.ROWS)
+        self._update(tuple((row.shown, row.short) for row in DRIVE_KEYS if row.group != STOPPING.description))
 
     def paint(self, width: int, height: int) -> Rows:
         text = Rows()
-        for i, (key, what) in enumerate(self.ROWS):
-            text.append(f"{key:<11}", "bold")
-            text.append(what + ("\n" if i < len(self.ROWS) - 1 else ""))
+        rows = self._shown or ()
+        for i, (key, what) in enumerate(rows):
+            text.append(f"{key:<7}", "bold")
+            text.append(what + ("\n" if i < len(rows) - 1 else ""))
         return text
