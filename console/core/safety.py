@@ -94,7 +94,7 @@ CAUSES: dict[StopCause, CauseRule] = {
     StopCause.DEADMAN: CauseRule(StopKind.CONTROLLED, frozenset({SafetyState.ARMED}),
                                  "no operator keep-alive for the operator timeout (latched driving)"),
     StopCause.UI_STALL: CauseRule(StopKind.FAST, _MOVING, "no UI heartbeat for the UI timeout"),
-    StopCause.LINK_LOST: CauseRule(StopKind.IMMEDIATE, _ALL,
+    StopCause.LINK_LOST: CauseRule(StopKind.IMMEDIATE, _MOVING,
                                    "the port went away, or no valid telemetry for telemetry_timeout_s"),
     StopCause.WATCHDOG: CauseRule(StopKind.IMMEDIATE, _MOVING, "telemetry answering the release frame has WATCHDOG"),
     StopCause.FAULT: CauseRule(StopKind.IMMEDIATE, _MOVING, "telemetry answering the release frame has FAULT"),
@@ -102,7 +102,8 @@ CAUSES: dict[StopCause, CauseRule] = {
     StopCause.LOOP_FAILURE: CauseRule(StopKind.IMMEDIATE, _ALL, "an error inside a control cycle (a bug)"),
 }
 """Why: where the console can no longer see the robot, or the robot has already cut its motors, ramping commands
-down would only restart motion: zero at once instead. Link loss is watched in every state (the panel must say it)."""
+down would only restart motion: zero at once instead. A lost link changes the state only while frames could move the
+robot; in any state the link monitor reports it (the panel says "link lost, robot state unknown")."""
 
 STOP_CATEGORY = {StopKind.IMMEDIATE: 0, StopKind.FAST: 1, StopKind.CONTROLLED: 2}
 """Stop categories of the machinery-safety standard for electrical equipment (IEC 60204-1, 9.2.2): 0 remove drive
@@ -155,6 +156,8 @@ class SafetyMachine:
         if trigger is Trigger.FAIL:
             cause = StopCause.LOOP_FAILURE
         if cause is not None:
+            if trigger is Trigger.STOP and not self.watches(cause):
+                return None                  # e.g. a lost link while disarmed: nothing to stop
             kind = CAUSES[cause].kind or kind or StopKind.CONTROLLED
         if rule.guard is Guard.NEVER:
             return rule.note.removeprefix("refused: ")
