@@ -18,7 +18,7 @@ from textual.screen import Screen
 
 from console.core.safety import SafetyState, StopCause
 from console.links import is_simulated
-from console.ui.driving import DriveInput, DriveMode, DriveSettings
+from console.ui.driving import Confirm, DriveInput, DriveMode, DriveSettings
 from console.ui.keys import APP_BINDINGS, SCREEN_BINDINGS
 from console.ui.screens import CautionScreen, HelpScreen
 from console.ui.signals import exit_on_ending_signals
@@ -168,10 +168,11 @@ class DriveScreen(Screen[None]):
         """Only what is known: the robot's state needs live telemetry; the arming hint only when arming would work."""
         state, refusal = snap.state, snap.arm_refusal
         if snap.link.lost is not None:
-            if drive.reconnect_pending(now_s):
+            if drive.window_pending(Confirm.RECONNECT, now_s):
                 return "link lost · press ENTER now to reopen it"
             return "link lost, robot state unknown\nreconnect: r, enter"
-        if refusal is None and drive.arm_pending(now_s) and state in (SafetyState.DISARMED, SafetyState.STOPPED):
+        armable = state in (SafetyState.DISARMED, SafetyState.STOPPED)
+        if refusal is None and armable and drive.window_pending(Confirm.ARM, now_s):
             return "press ENTER now to arm"
         arming = f"cannot arm: {refusal}" if refusal is not None else \
             ("re-arm: a, enter" if state is SafetyState.STOPPED else "arm: a, enter")
@@ -319,7 +320,7 @@ class DriveApp(App[int]):
     def action_stop(self, kind: str) -> None:
         self._key(f"stop {kind}")
         self.drive.clear()
-        self.drive.cancel_arm()
+        self.drive.cancel_window()
         self.loop.stop(StopKind(kind), StopCause.OPERATOR)
 
     def action_quit_console(self) -> None:
@@ -332,7 +333,7 @@ class DriveApp(App[int]):
         self._key("arm open")
         if not self.confirmed:
             return
-        self.drive.open_arm(self.clock.now())
+        self.drive.open_window(Confirm.ARM, self.clock.now())
         self._note(f"arming: press enter within {self.drive.arm_window_s:g} s")
         self.tick()
 
@@ -342,18 +343,18 @@ class DriveApp(App[int]):
         if snap is None or snap.link.lost is None:
             self._note("the link is up: nothing to reconnect")
             return
-        self.drive.open_reconnect(self.clock.now())
+        self.drive.open_window(Confirm.RECONNECT, self.clock.now())
         self._note(f"reconnect {snap.link.url}: press enter within {self.drive.arm_window_s:g} s")
         self.tick()
 
     def arm_confirm(self) -> None:
-        if self.drive.confirm_reconnect(self.clock.now()):
+        if self.drive.confirm(Confirm.RECONNECT, self.clock.now()):
             self._key("reconnect confirm")
             self.loop.reconnect()
             self._note("reopening the link; arm again once telemetry is back")
             return
         self._key("arm confirm")
-        if not self.drive.confirm_arm(self.clock.now()):
+        if not self.drive.confirm(Confirm.ARM, self.clock.now()):
             self._note("enter arms only right after a")
             return
         self.drive.clear()

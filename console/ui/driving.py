@@ -21,6 +21,13 @@ from dataclasses import dataclass
 from shaping.envelope import Envelope
 
 
+class Confirm(enum.Enum):
+    """What a two-key sequence's window is open for."""
+
+    ARM = "arm"
+    RECONNECT = "reconnect"
+
+
 class DriveMode(enum.Enum):
     HOLD = "hold"
     LATCHED = "latched"
@@ -57,13 +64,12 @@ class DriveInput:
         self.deadman_s = settings.deadman_s
         self.keepalive_s = settings.keepalive_s
         self._present_s = 0.0
-        self._reconnect_opened_s: float | None = None
         self.arm_window_s = settings.arm_window_s
         self.mode = settings.mode
         self.v_mps = 0.0
         self.omega_radps = 0.0
         self._refreshed_s: float | None = None
-        self._arm_opened_s: float | None = None
+        self._window: tuple[Confirm, float] | None = None
 
     @property
     def request(self) -> tuple[float, float]:
@@ -145,32 +151,20 @@ class DriveInput:
         self.speed_step_mps = min(max(self.speed_step_mps * factor, top / 100.0), top / 2.0)
         self.turn_step_radps = min(max(self.turn_step_radps * factor, turn / 100.0), turn / 2.0)
 
-    def open_arm(self, now_s: float) -> None:
-        self._arm_opened_s = now_s
-        self._reconnect_opened_s = None
+    def open_window(self, purpose: Confirm, now_s: float) -> None:
+        """The arm key (or, after a link loss, the reconnect key) opens the window the confirm key must fall in;
+        a new window replaces any other."""
+        self._window = (purpose, now_s)
 
-    def arm_pending(self, now_s: float) -> bool:
-        return self._arm_opened_s is not None and now_s - self._arm_opened_s <= self.arm_window_s
+    def window_pending(self, purpose: Confirm, now_s: float) -> bool:
+        return self._window is not None and self._window[0] is purpose and now_s - self._window[1] <= self.arm_window_s
 
-    def confirm_arm(self, now_s: float) -> bool:
-        """True when the confirm key came inside the window the arm key opened; the window closes either way."""
-        pending = self.arm_pending(now_s)
-        self._arm_opened_s = None
+    def confirm(self, purpose: Confirm, now_s: float) -> bool:
+        """True when the confirm key came inside the window opened for `purpose`; the window closes either way."""
+        pending = self.window_pending(purpose, now_s)
+        if self._window is not None and self._window[0] is purpose:
+            self._window = None
         return pending
 
-    def cancel_arm(self) -> None:
-        self._arm_opened_s = None
-        self._reconnect_opened_s = None
-
-    def open_reconnect(self, now_s: float) -> None:
-        """After a link loss: the reconnect key opens the same window the arm key does, for the confirm key."""
-        self._reconnect_opened_s = now_s
-        self._arm_opened_s = None
-
-    def reconnect_pending(self, now_s: float) -> bool:
-        return self._reconnect_opened_s is not None and now_s - self._reconnect_opened_s <= self.arm_window_s
-
-    def confirm_reconnect(self, now_s: float) -> bool:
-        pending = self.reconnect_pending(now_s)
-        self._reconnect_opened_s = None
-        return pending
+    def cancel_window(self) -> None:
+        self._window = None

@@ -8,7 +8,7 @@ import pytest
 from console.profile import load_profile
 from console.ui.bigtext import big_lines
 from console.ui.braille import BrailleCanvas
-from console.ui.driving import DriveInput, DriveMode, DriveSettings
+from console.ui.driving import Confirm, DriveInput, DriveMode, DriveSettings
 from tests.console.ui.conftest import PROFILES
 
 
@@ -84,10 +84,11 @@ def test_hold_expires_once_after_the_deadman_time_and_latched_never(drive: Drive
 
 
 def test_arming_window(drive: DriveInput) -> None:
-    assert not drive.confirm_arm(0.0)
-    drive.open_arm(1.0)
-    assert drive.arm_pending(2.9) and not drive.arm_pending(3.1)
-    assert not drive.confirm_arm(3.1)
-    drive.open_arm(5.0)
-    assert drive.confirm_arm(6.0)
-    assert not drive.confirm_arm(6.1)                   # one confirm per window
+    assert not drive.confirm(Confirm.ARM, 0.0)
+    drive.open_window(Confirm.ARM, 1.0)
+    assert drive.window_pending(Confirm.ARM, 2.9) and not drive.window_pending(Confirm.ARM, 3.1)
+    assert not drive.confirm(Confirm.ARM, 3.1)
+    drive.open_window(Confirm.ARM, 5.0)
+    assert not drive.confirm(Confirm.RECONNECT, 5.5)     # a window is for one purpose
+    assert drive.confirm(Confirm.ARM, 6.0)
+    assert not drive.confirm(Confirm.ARM, 6.1)          # one confirm per window
