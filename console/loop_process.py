@@ -153,9 +153,9 @@ def _build(profile: Profile, options: _Options) -> tuple[ControlLoop, Any, Any]:
     return loop, recorder, trace
 
 
-def _harsher_asked(since: int) -> Callable[[], bool]:
-    """True once another ending signal came after `since` of them (the stop is then escalated)."""
-    return lambda: _Endings.count > since
+def _endings() -> int:
+    """Ending signals so far: each one after the first makes the child's stop harsher."""
+    return _Endings.count
 
 
 class _Child:
@@ -233,9 +233,9 @@ def _child_main(conn: Connection, profile: Profile, options: _Options) -> None:
         _Endings.serving = False
         if child.started:
             if asked:
-                bring_to_rest(loop, StopKind.CONTROLLED, StopCause.PROGRAM_END, harsher=_harsher_asked(_Endings.count))
+                bring_to_rest(loop, StopKind.CONTROLLED, StopCause.PROGRAM_END, escalations=_endings)
             else:
-                bring_to_rest(loop, StopKind.FAST, StopCause.UI_STALL, harsher=_harsher_asked(_Endings.count))
+                bring_to_rest(loop, StopKind.FAST, StopCause.UI_STALL, escalations=_endings)
         loop.close()
         stats, link = loop.stats(), loop.link_stats()
         sidecar = str(recorder.close(stats, link)) if recorder is not None else None

@@ -24,6 +24,7 @@ if TYPE_CHECKING:
 STOP_MARGIN_S = 1.0
 """Added to the time a stop should take (its ramps from the current state) before it is escalated."""
 REST_POLL_S = 0.01
+ESCALATION = (StopKind.CONTROLLED, StopKind.FAST, StopKind.IMMEDIATE)
 
 
 class LoopHandle(Protocol):
@@ -74,22 +75,29 @@ def at_rest(loop: LoopHandle) -> bool:
 
 
 def bring_to_rest(loop: LoopHandle, kind: StopKind, cause: StopCause, *,
-                  harsher: Callable[[], bool] = lambda: False) -> None:
-    """Stop with `kind` on the wall clock; escalate to an immediate stop if the robot is not at rest in the time the
-    stop should take, or as soon as `harsher()` turns true (a repeated signal).
+                  escalations: Callable[[], int] = lambda: 0, wait: Callable[[float], None] = time.sleep,
+                  clock: Callable[[], float] = time.monotonic,
+                  announce: Callable[[StopKind], None] = lambda kind: None) -> None:
+    """Stop with `kind`, then harsher kinds in turn (controlled -> fast -> immediate) whenever the robot is not at
+    rest in the time the current stop should take, or when `escalations()` (a count: repeated Ctrl-C or signals)
+    goes up. `wait` and `clock` are the wall clock's by default; a virtual-clock run passes its own, which advance
+    the loop. `announce` hears of every escalation.
 
     The UI heartbeat is beaten meanwhile: whoever calls this is the only one left to do it, and a UI-stall stop must
     not interrupt the stop asked for here.
     """
-    steps = (kind,) if kind is StopKind.IMMEDIATE else (kind, StopKind.IMMEDIATE)
-    for step in steps:
+    asked = escalations()
+    for step in ESCALATION[ESCALATION.index(kind):]:
+        if step is not kind:
+            announce(step)
         loop.stop(step, cause)
-        deadline = time.monotonic() + stop_allowance_s(loop, step)
-        time.sleep(2.0 / loop.profile.link.rate_hz)         # let the loop take the stop before judging the state
-        while not at_rest(loop) and time.monotonic() < deadline:
-            if step is not StopKind.IMMEDIATE and harsher():
+        deadline = clock() + stop_allowance_s(loop, step)
+        wait(2.0 / loop.profile.link.rate_hz)               # let the loop take the stop before judging the state
+        while not at_rest(loop) and clock() < deadline:
+            if escalations() > asked:
+                asked = escalations()
                 break
             loop.ui_alive()
-            time.sleep(REST_POLL_S)
+            wait(REST_POLL_S)
         if at_rest(loop):
             return

@@ -23,7 +23,7 @@ from console.errors import InputError, LinkLost, RobotFault
 from console.interrupts import Interrupts
 from console.links import is_simulated
 from console.profile import load_profile
-from shaping.shaper import StopKind
+from console.session import ESCALATION
 
 NAME = "bench"
 HELP = "run a bench test program (built-in or TOML) on the robot, wheels off the ground, and record it"
@@ -32,7 +32,6 @@ ORDER = 60
 CONFIRMATION = "wheels up"
 EXIT_INTERRUPTED = 130
 """The program did not run to its end (stopped from the screen); a signal's own code (128 + its number) wins."""
-ESCALATION = (StopKind.CONTROLLED, StopKind.FAST, StopKind.IMMEDIATE)
 CAUTION = ("Bench test: the robot moves by itself. Wheels OFF THE GROUND (robot on a stand), a hardware emergency "
            "stop within reach. A software stop is not a safety function.")
 

@@ -27,8 +27,8 @@ from console.loop import ControlLoop, VirtualClock, WallClock
 from console.profile import load_profile
 from console.protocol import flag_names
 from console.record import Recorder, default_path, sidecar_path
+from console.session import ESCALATION, bring_to_rest
 from console.verbs.shape import TIME_EPS_S, Requests, read_requests
-from shaping.shaper import StopKind
 
 NAME = "play"
 HELP = "stream a request trace through the control loop to the robot (real time) and record the session"
@@ -41,7 +41,6 @@ FIRST_TELEMETRY_GRACE_S = 1.0
 SETTLE_LIMIT_S = 60.0
 """After the last row, the longest the request is held while waiting for the shaped output to settle."""
 STOP_LIMIT_S = 60.0
-ESCALATION = (StopKind.CONTROLLED, StopKind.FAST, StopKind.IMMEDIATE)
 
 CAUTIONS = """\
 Before anything moves:
@@ -108,6 +107,10 @@ class _Run:
         if self.loop.failure is not None:
             raise LoopFailure(f"control loop failed inside a cycle ({self.loop.failure!r}); category-0 stop frames "
                               "sent")
+
+    def clock(self) -> float:
+        """The run's time: the loop's own (virtual clock) or the wall's."""
+        return self.loop.snapshot().t_s if self.fast else time.monotonic()
 
     def poll(self) -> Snapshot:
         self.wait(POLL_S if not self.fast else 1.0 / self.loop.profile.link.rate_hz)
@@ -241,21 +244,13 @@ def _play(args: argparse.Namespace, session: _Run, player: _Player, url: str, re
 
 
 def _stop(session: _Run, cause: StopCause, url: str, record: Path) -> Exception | None:
-    """Controlled stop, escalated by every further Ctrl-C; waits until the loop reports STOPPED."""
+    """Controlled stop (fast or immediate after more Ctrl-C / signals), escalated by every further one and whenever
+    it takes longer than it should; the run's own clock (wall or virtual) paces it."""
     loop, interrupts = session.loop, session.interrupts
-    asked = max(interrupts.count, 1)
-    loop.stop(ESCALATION[min(asked - 1, 2)], cause)
-    deadline = time.monotonic() + STOP_LIMIT_S
-    while True:
-        snapshot = session.poll()
-        if snapshot.state is SafetyState.STOPPED:
-            break
-        if interrupts.count > asked:
-            asked = interrupts.count
-            loop.stop(ESCALATION[min(asked - 1, 2)], interrupts.cause)
-            _say(f"play: {ESCALATION[min(asked - 1, 2)].value} stop")
-        if time.monotonic() > deadline:
-            loop.stop(StopKind.IMMEDIATE, StopCause.OPERATOR)
+    kind = ESCALATION[min(max(interrupts.count, 1) - 1, 2)]
+    bring_to_rest(loop, kind, cause, escalations=lambda: interrupts.count, wait=session.wait,
+                  clock=session.clock, announce=lambda step: _say(f"play: {step.value} stop"))
+    snapshot = loop.snapshot()
     error = _fault_error(snapshot, url, record)
     if error is None:
         _say(f"play: stopped ({snapshot.cause.value if snapshot.cause is not None else 'no cause'})")
