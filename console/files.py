@@ -23,6 +23,7 @@ from __future__ import annotations
 
 import csv
 import io
+import math
 import os
 import re
 import stat
@@ -39,6 +40,14 @@ STDOUT = "-"
 # A number in a CSV input: plain decimal or exponent notation. float() alone would also take "1_0" (as 10), "nan",
 # "inf" and "infinity", none of which a trace or a recording should hold.
 PLAIN_NUMBER = re.compile(r"\s*[-+]?(?:\d+\.?\d*|\.\d+)(?:[eE][-+]?\d+)?\s*")
+
+
+def plain_number(where: str, name: str, text: str) -> float:
+    """A plain decimal number from a CSV cell: float() alone would also take "1_0" (as 10), "nan" and "inf"."""
+    value = float(text) if PLAIN_NUMBER.fullmatch(text) else math.nan
+    if not math.isfinite(value):
+        raise InputError(where, name, text[:40], "a finite number")
+    return value
 
 
 def _kind(mode: int) -> str:

@@ -14,7 +14,7 @@ import stat
 import struct
 from collections.abc import Iterator
 from dataclasses import dataclass
-from typing import Any
+from typing import Any, cast
 
 from console.errors import InputError
 from console.inputs.mapper import Event
@@ -91,8 +91,8 @@ def describe(path: str) -> DeviceInfo:
     device = InputDevice(path)
     try:
         capabilities = device.capabilities(absinfo=True)
-        axes = {codes[ecodes.EV_ABS].get(code, str(code)): (info.min, info.max, info.flat)
-                for code, info in capabilities.get(ecodes.EV_ABS, [])}
+        absolute = cast("list[tuple[int, Any]]", capabilities.get(ecodes.EV_ABS, []))   # (code, AbsInfo) pairs
+        axes = {codes[ecodes.EV_ABS].get(code, str(code)): (info.min, info.max, info.flat) for code, info in absolute}
         buttons = tuple(codes[ecodes.EV_KEY].get(code, str(code)) for code in capabilities.get(ecodes.EV_KEY, []))
         return DeviceInfo(path, device.name, axes, buttons)
     finally:

@@ -14,7 +14,7 @@ from pathlib import Path
 from typing import IO
 
 from console.errors import DiffdeckError, InputError
-from console.files import PLAIN_NUMBER, STDOUT, atomic_output, check_output, read_csv_rows
+from console.files import STDOUT, atomic_output, check_output, plain_number, read_csv_rows
 from console.profile import RATE_HZ_RANGE, Profile, load_profile
 from shaping.envelope import Bound
 from shaping.ramp import plan_ramp
@@ -67,7 +67,7 @@ def read_requests(path: str | Path) -> Requests:
     turns: list[float] = []
     previous = -math.inf
     for where, row in read_csv_rows(path, "a request trace (CSV)", INPUT_HEADER):
-        t, v, omega = (_number(where, name, text) for name, text in zip(INPUT_HEADER, row))
+        t, v, omega = (plain_number(where, name, text) for name, text in zip(INPUT_HEADER, row))
         if t < 0.0 or t <= previous:
             allowed = "at least 0" if previous == -math.inf else f"greater than the previous row's {previous:g}"
             raise InputError(where, "t_s", row[0], f"a time in s {allowed} (times must increase)")
@@ -82,14 +82,6 @@ def read_requests(path: str | Path) -> Requests:
     if not times:
         raise InputError(file, "rows", "(none)", "at least one request row after the header")
     return Requests(times, speeds, turns)
-
-
-def _number(where: str, name: str, text: str) -> float:
-    """A plain decimal number: float() alone would also take "1_0" (as 10), "nan" and "inf"."""
-    value = float(text) if PLAIN_NUMBER.fullmatch(text) else math.nan
-    if not math.isfinite(value):
-        raise InputError(where, name, text[:40], "a finite number")
-    return value
 
 
 def _settle_allowance_s(profile: Profile) -> float:
