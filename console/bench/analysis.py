@@ -16,6 +16,8 @@ RISE_LOW, RISE_HIGH = 0.1, 0.9          # 10-90 % rise time (common practice)
 SETTLING_BAND = 0.02                    # 2 % settling criterion (common practice)
 DEAD_BAND = 0.02                        # the response "starts" when it leaves 2 % of its change (common practice)
 FINAL_SHARE = 0.1                       # the steady state is the mean of the last 10 % of a step's window
+MIN_RESPONSE_SHARE = 0.05              # a response that changes by less than 5 % of the step did not follow it
+MIN_STEP_SAMPLES = 10                   # fewer samples after a step: no step metrics (our choice)
 ACCEL_WINDOW_S = 0.15                   # Savitzky-Golay window for the first derivative
 JERK_WINDOW_S = 0.3                     # and for the second
 
@@ -60,7 +62,7 @@ def step_metrics(t: np.ndarray, y: np.ndarray, t_step: float, request_before: fl
     valid = np.isfinite(y)
     after = valid & (t >= t_step) & (t <= t_end)
     before = valid & (t < t_step) & (t >= t_step - 0.25)
-    if np.count_nonzero(after) < 10:
+    if np.count_nonzero(after) < MIN_STEP_SAMPLES:
         return None
     ta, ya = t[after], y[after]
     initial = float(np.mean(y[before])) if np.any(before) else float(ya[0])
@@ -69,7 +71,7 @@ def step_metrics(t: np.ndarray, y: np.ndarray, t_step: float, request_before: fl
     noise = float(np.std(ya[-tail:]))
     change = final - initial
     error = request_after - final
-    if abs(change) < 1e-9 or abs(change) < 0.05 * abs(request_after - request_before):
+    if abs(change) < 1e-9 or abs(change) < MIN_RESPONSE_SHARE * abs(request_after - request_before):
         return StepMetrics(t_step, request_before, request_after, initial, final, None, None, None, None, error)
     z = (ya - initial) / change
     rel = ta - t_step
@@ -110,11 +112,39 @@ class FopdtFit:
     r2: float            # coefficient of determination
     nrmse: float         # RMS error / (max y - min y)
     samples: int
+    moving_samples: int = 0              # samples where the command is away from rest (what the fit learns from)
+    at_bound: tuple[str, ...] = ()       # parameters the search ended on a bound of (not the physical dead time 0)
 
     @property
     def lag_s(self) -> float:
         """tau + dead time: how far a ramp's response trails the command (first-order ramp response)."""
         return self.tau_s + self.dead_time_s
+
+
+MIN_FIT_R2 = 0.9            # our choice: healthy wheels fit with R^2 > 0.99; a wiring fault gives about 0 to 0.1
+MIN_MOVING_SAMPLES = 50     # our choice: 0.5 s of commanded motion at 100 Hz for gain, time constant and dead time
+MOVING_SHARE = 0.05         # a command beyond 5 % of its largest magnitude counts as "moving"
+
+
+def fit_problems(fit: FopdtFit | None) -> tuple[str, ...]:
+    """The quality gates a wheel fit fails, each as a short statement with its numbers (empty: the fit is usable).
+
+    A suggestion built on a fit that fails any of them would be advice from a model that does not describe the
+    wheel: a poor fit (R^2), a parameter the search could not place (at a bound), a wheel answering with the opposite
+    sign (a wiring fault: polarity comes before limits), or too little commanded motion to learn from.
+    """
+    if fit is None:
+        return ("no fit: the command or the measurement never moved",)
+    problems = []
+    if fit.gain <= 0.0:
+        problems.append(f"gain {fit.gain:.3g} <= 0: the wrong sign (the wheel measures against its command)")
+    if not fit.r2 >= MIN_FIT_R2:
+        problems.append(f"R^2 {fit.r2:.3f} < {MIN_FIT_R2}: the first-order model does not describe the response")
+    for name in fit.at_bound:
+        problems.append(f"{name} at its search bound: the fit could not place it")
+    if fit.moving_samples < MIN_MOVING_SAMPLES:
+        problems.append(f"{fit.moving_samples} samples with the command moving < {MIN_MOVING_SAMPLES}: too few to fit")
+    return tuple(problems)
 
 
 def _uniform(t: np.ndarray, *signals: np.ndarray) -> tuple[float, np.ndarray, list[np.ndarray]]:
@@ -199,11 +229,16 @@ def fit_fopdt(t: np.ndarray, u: np.ndarray, y: np.ndarray, max_dead_s: float = 0
     result = optimize.least_squares(residual, start, bounds=(lower, upper), x_scale=[1.0, 0.05, 0.01],
                                      xtol=1e-6, ftol=1e-8)
     gain, tau, dead = (float(v) for v in result.x)
+    # within 1 % of a bound (the search's iterates stay strictly inside); a dead time of 0 is physical, not a limit
+    at_bound = tuple(name for name, value, low, high in zip(("gain", "time constant", "dead time"), result.x,
+                                                            lower, upper)
+                     if any(bound != 0.0 and abs(value - bound) <= 0.01 * abs(bound) for bound in (low, high)))
+    moving = int(np.count_nonzero(np.abs(u_grid) > MOVING_SHARE * u_max))
     res = result.fun
     total = float(np.sum((y_grid - y_grid.mean()) ** 2))
     r2 = 1.0 - float(res @ res) / total if total > 0 else math.nan
     nrmse = float(np.sqrt(np.mean(res ** 2))) / float(np.ptp(y_grid))
-    return FopdtFit(gain, tau, dead, float(deadband), r2, nrmse, int(y_grid.size))
+    return FopdtFit(gain, tau, dead, float(deadband), r2, nrmse, int(y_grid.size), moving, at_bound)
 
 
 # --- derivatives -------------------------------------------------------------------------------------------------

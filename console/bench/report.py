@@ -53,12 +53,14 @@ class SegmentReport:
 @dataclass(frozen=True, slots=True)
 class Report:
     recording: str
+    robot: str | None                    # the profile's robot name, when the recorder's sidecar has it
     program: str | None
     duration_s: float
     rows: int
     segments: tuple[SegmentReport, ...]
     fits: dict[str, FopdtFit | None]
-    limits: SuggestedLimits | None
+    fit_problems: dict[str, tuple[str, ...]]   # the quality gates each wheel fit fails (empty: usable)
+    limits: SuggestedLimits | None             # only from fits that pass and a robot without wiring faults
     polarity: PolarityReport | None
     notes: tuple[str, ...]
     profile_limits: dict[str, object]    # the [limits] of the profile the recording was made with (if known)
@@ -166,12 +168,27 @@ def _peak(values: np.ndarray | None, rows: np.ndarray) -> float | None:
     return float(np.nanmax(chunk)) if np.any(np.isfinite(chunk)) else None
 
 
-def _segment_report(sig: _Signals, seg: Segment) -> SegmentReport:
+def _step_problem(seg: Segment, m: StepMetrics) -> str | None:
+    """Why a step's metrics do not describe the wheel: the response moved against the request, or hardly at all."""
+    asked, moved = m.request_after - m.request_before, m.final - m.initial
+    if asked == 0.0:
+        return None
+    if abs(moved) < analysis.MIN_RESPONSE_SHARE * abs(asked):
+        return (f"segment {seg.index} '{seg.name}': the response did not follow the request step "
+                f"({moved:+.3g} for {asked:+.3g}): no step metrics; check polarity and a dead wheel first")
+    if moved * asked < 0.0:
+        return (f"segment {seg.index} '{seg.name}': the response moved against the request step "
+                f"({moved:+.3g} for {asked:+.3g}): check polarity first")
+    return None
+
+
+def _segment_report(sig: _Signals, seg: Segment) -> tuple[SegmentReport, list[str]]:
+    """The segment's metrics and the notes on steps they could not be measured from."""
     t = sig.t
     rows = (t >= seg.t_start_s) & (t < seg.t_end_s)
     axis = seg.axis if sig.axis(seg.axis) is not None else "left"
     req, cmd, meas = sig.series(axis)
-    metrics = []
+    metrics, notes = [], []
     edges = _edges(seg)
     for i, edge in enumerate(edges):
         end = edges[i + 1] if i + 1 < len(edges) else seg.t_end_s
@@ -180,7 +197,11 @@ def _segment_report(sig: _Signals, seg: Segment) -> SegmentReport:
         if after.size == 0:
             continue
         m = analysis.step_metrics(t, meas, edge, float(before[0]), float(after[0]), end)
-        if m is not None:
+        problem = f"segment {seg.index} '{seg.name}': fewer than {analysis.MIN_STEP_SAMPLES} samples after the " \
+                  f"step at {edge:.2f} s: no step metrics" if m is None else _step_problem(seg, m)
+        if problem is not None and problem not in notes:
+            notes.append(problem)
+        if m is not None and problem is None:
             metrics.append(m)
     err_l = sig.cmd_l - sig.meas_l
     err_r = sig.cmd_r - sig.meas_r
@@ -195,7 +216,7 @@ def _segment_report(sig: _Signals, seg: Segment) -> SegmentReport:
         float(np.sqrt(np.mean(track[finite] ** 2))) if np.any(finite) else None,
         float(np.sqrt(np.nanmean(mismatch ** 2))) if np.any(np.isfinite(mismatch)) else None,
         float(np.nanmax(np.abs(mismatch))) if np.any(np.isfinite(mismatch)) else None,
-    )
+    ), notes
 
 
 def analyze(rec: Recording, speed_error_mps: float | None = None) -> Report:
@@ -205,12 +226,32 @@ def analyze(rec: Recording, speed_error_mps: float | None = None) -> Report:
         notes.append("no geometry in the sidecars: speed and turn-rate metrics and suggested limits are left out")
     if rec.bench is None:
         notes.append("no bench sidecar (<csv>.bench.json): the whole recording is one segment")
-    segments = tuple(_segment_report(sig, seg) for seg in rec.segments)
     fits = {w: analysis.fit_fopdt(rec.t, rec.data[f"{w}_cmd_radps"], rec.data[f"{w}_meas_radps"])
             for w in ("left", "right")}
+    problems = {w: analysis.fit_problems(fit) for w, fit in fits.items()}
+    polarity = check_polarity(rec, _profile_table(rec, "units"))
+    wiring = [f.kind for f in polarity.findings if f.kind != "ok"] if polarity is not None else []
+    reversed_fit = [w for w, fit in fits.items() if fit is not None and fit.gain <= 0.0]
+    if wiring:
+        notes.append(f"check polarity first: the polarity check found: {', '.join(wiring)}; fix [units] as it "
+                     "says (below), run the `polarity` bench program again, then tune limits")
+    elif reversed_fit:
+        notes.append(f"check polarity first: the {' and '.join(reversed_fit)} wheel's fit has a gain of the wrong "
+                     "sign; run the `polarity` bench program and fix [units] before tuning limits")
+    notes += [f"{w} wheel fit fails its quality gates: {'; '.join(p)}" for w, p in problems.items() if p]
+    segments, step_notes = [], []
+    for seg in rec.segments:
+        segment, segment_notes = _segment_report(sig, seg)
+        segments.append(segment)
+        step_notes += segment_notes
+    failed = [w for w, p in problems.items() if p]
     limits = None
     radius, track = rec.wheel_radius_m, rec.track_width_m
-    if radius is not None and track is not None:
+    if radius is not None and track is not None and (wiring or failed):
+        notes.append("no limits suggested: " + (
+            "a wiring fault comes first (see the polarity check)" if wiring else
+            f"the {' and '.join(failed)} wheel fit{'s fail' if len(failed) > 1 else ' fails'} its quality gates"))
+    elif radius is not None and track is not None:
         if speed_error_mps is None:
             speed_error_mps = (DEFAULT_SPEED_ERROR_SHARE * rec.top_speed_mps if rec.top_speed_mps
                                else DEFAULT_SPEED_ERROR_MPS)
@@ -221,17 +262,26 @@ def analyze(rec: Recording, speed_error_mps: float | None = None) -> Report:
         lags = {w: analysis.ramp_lag(rec.t, rec.data[f"{w}_cmd_radps"], rec.data[f"{w}_meas_radps"], shaped)
                 for w in ("left", "right")}
         limits = analysis.suggest_limits(fits, radius, track, speed_error_mps, lags)
-    polarity = check_polarity(rec, _profile_table(rec, "units"))
-    return Report(str(rec.path), rec.program, float(rec.t[-1] - rec.t[0]), int(rec.t.size), segments, fits,
-                  limits, polarity, tuple(notes), _profile_table(rec, "limits"))
+    return Report(str(rec.path), _profile(rec).get("name"), rec.program, float(rec.t[-1] - rec.t[0]),
+                  int(rec.t.size), tuple(segments), fits, problems, limits, polarity, (*notes, *step_notes),
+                  _profile_table(rec, "limits"))
+
+
+def _profile(rec: Recording) -> dict[str, Any]:
+    """The recorder sidecar's profile entry (path, name, data), {} when unknown."""
+    try:
+        meta = json.loads(sidecar_path(rec.path).read_text(encoding="utf-8"))
+        profile = meta.get("profile") or {}
+        return profile if isinstance(profile, dict) else {}
+    except (OSError, ValueError, AttributeError, TypeError, RecursionError):
+        return {}
 
 
 def _profile_table(rec: Recording, name: str) -> dict[str, object]:
     """A table of the profile the recording was made with, from the recorder's sidecar ({} when unknown)."""
     try:
-        meta = json.loads(sidecar_path(rec.path).read_text(encoding="utf-8"))
-        return dict(((meta.get("profile") or {}).get("data") or {}).get(name) or {})
-    except (OSError, ValueError, AttributeError, TypeError, RecursionError):
+        return dict((_profile(rec).get("data") or {}).get(name) or {})
+    except (AttributeError, TypeError, ValueError):
         return {}
 
 
@@ -255,6 +305,28 @@ def _decimate(t: np.ndarray, y: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     return ts, ys
 
 
+def _title(report: Report, what: str) -> str:
+    """Every figure names what it shows, the recording and the robot: figures travel without their folder."""
+    return f"{what}\n{Path(report.recording).name}" + (f"  ({report.robot})" if report.robot else "")
+
+
+NOTE_LINES = 4     # notes printed under a figure; the rest are in summary.md
+
+
+def _figure_notes(fig: Any, report: Report) -> float:
+    """The report's notes (failed quality gates first) in red under the plots; returns the height they take."""
+    if not report.notes:
+        return 0.0
+    import textwrap
+
+    shown = [textwrap.shorten(note, 150, placeholder=" ...") for note in report.notes[:NOTE_LINES]]
+    if len(report.notes) > NOTE_LINES:
+        shown.append(f"(+ {len(report.notes) - NOTE_LINES} more notes in summary.md)")
+    height = (0.3 + 0.17 * len(shown)) / fig.get_figheight()
+    fig.text(0.01, 0.01, "\n".join(shown), color="C3", fontsize=8, va="bottom", ha="left")
+    return height
+
+
 def _figures(rec: Recording, report: Report, out: Path) -> list[Path]:
     import matplotlib
 
@@ -266,44 +338,58 @@ def _figures(rec: Recording, report: Report, out: Path) -> list[Path]:
     axes_shown = [a for a in ("speed", "turn", "left", "right") if sig.axis(a) is not None]
     paths = []
 
-    def mark(ax: Any) -> None:
+    def mark(ax: Any, labelled: bool = False) -> None:
+        """Segment boundaries as lines; on the top plot also labelled with the segment's number and name."""
         for seg in rec.segments[1:]:
-            ax.axvline(seg.t_start_s, color="0.8", lw=0.6, zorder=0)
+            ax.axvline(seg.t_start_s, color="0.6", lw=0.6, ls="--", zorder=0)
         ax.grid(True, lw=0.3)
+        if labelled and len(rec.segments) > 1:
+            top = ax.secondary_xaxis("top")
+            top.set_xticks([seg.t_start_s for seg in rec.segments],
+                           labels=[f"{seg.index} {seg.name}" for seg in rec.segments], fontsize=7, rotation=20,
+                           ha="left")
+            top.tick_params(length=0)
 
-    fig, axs = plt.subplots(len(axes_shown), 1, figsize=(11, 2.3 * len(axes_shown)), sharex=True, squeeze=False)
-    for ax, name in zip(axs[:, 0], axes_shown):
+    def finish(fig: Any, name: str, what: str) -> None:
+        fig.suptitle(_title(report, what), fontsize=10)
+        bottom = _figure_notes(fig, report)
+        paths.append(_save(fig, out / name, bottom))
+
+    fig, axs = plt.subplots(len(axes_shown), 1, figsize=(11, 2.3 * len(axes_shown) + 1), sharex=True,
+                            squeeze=False)
+    for i, (ax, name) in enumerate(zip(axs[:, 0], axes_shown)):
         req, cmd, meas = sig.series(name)
         for values, label, style in ((req, "request", ":"), (cmd, "command", "-"), (meas, "measured", "-")):
             ax.plot(*_decimate(t, values), style, lw=0.8, label=label)
         ax.set_ylabel(f"{name} ({UNITS[name]})")
-        mark(ax)
+        mark(ax, labelled=i == 0)
     axs[0, 0].legend(loc="upper right", fontsize=8)
     axs[-1, 0].set_xlabel("t (s)")
-    fig.suptitle("command vs response")
-    paths.append(_save(fig, out / FIGURES[0]))
+    finish(fig, FIGURES[0], "command vs response")
 
-    fig, axs = plt.subplots(len(axes_shown), 1, figsize=(11, 2.3 * len(axes_shown)), sharex=True, squeeze=False)
-    for ax, name in zip(axs[:, 0], axes_shown):
+    fig, axs = plt.subplots(len(axes_shown), 1, figsize=(11, 2.3 * len(axes_shown) + 1), sharex=True,
+                            squeeze=False)
+    for i, (ax, name) in enumerate(zip(axs[:, 0], axes_shown)):
         for which, label in (("cmd", "commanded"), ("meas", "achieved")):
             ax.plot(*_decimate(t, sig.derivative(name, which, 1)), lw=0.8, label=label)
         ax.set_ylabel(f"d {name}/dt ({UNITS[name]}/s)")
-        mark(ax)
+        mark(ax, labelled=i == 0)
     axs[0, 0].legend(loc="upper right", fontsize=8)
     axs[-1, 0].set_xlabel("t (s)")
-    fig.suptitle("acceleration (Savitzky-Golay derivative)")
-    paths.append(_save(fig, out / FIGURES[1]))
+    finish(fig, FIGURES[1], "acceleration (Savitzky-Golay derivative)")
 
-    fig, axs = plt.subplots(2, 1, figsize=(11, 4.6), sharex=True)
+    fig, axs = plt.subplots(2, 1, figsize=(11, 5.6), sharex=True)
     if sig.body:
         _, cmd, meas = sig.series("speed")
         axs[0].plot(*_decimate(t, cmd - meas), lw=0.8, label="speed (m/s)")
         if report.limits is not None:
+            error = report.limits.speed_error_mps
             for sign in (1, -1):
-                axs[0].axhline(sign * report.limits.speed_error_mps, color="C3", lw=0.6, ls="--")
+                axs[0].axhline(sign * error, color="C3", lw=0.6, ls="--",
+                               label=f"stated tolerance \u00b1{error:.3g} m/s" if sign > 0 else None)
         axs[0].set_ylabel("command - measured")
         axs[0].legend(loc="upper right", fontsize=8)
-    mark(axs[0])
+    mark(axs[0], labelled=True)
     err_l, err_r = sig.cmd_l - sig.meas_l, sig.cmd_r - sig.meas_r
     axs[1].plot(*_decimate(t, err_l), lw=0.8, label="left")
     axs[1].plot(*_decimate(t, err_r), lw=0.8, label="right")
@@ -312,14 +398,13 @@ def _figures(rec: Recording, report: Report, out: Path) -> list[Path]:
     axs[1].set_xlabel("t (s)")
     axs[1].legend(loc="upper right", fontsize=8)
     mark(axs[1])
-    fig.suptitle("tracking error")
-    paths.append(_save(fig, out / FIGURES[2]))
+    finish(fig, FIGURES[2], "tracking error")
     plt.close("all")
     return paths
 
 
-def _save(fig: Any, path: Path) -> Path:
-    fig.tight_layout()
+def _save(fig: Any, path: Path, bottom: float = 0.0) -> Path:
+    fig.tight_layout(rect=(0.0, bottom, 1.0, 1.0))
     with atomic_output(path, binary=True) as handle:
         fig.savefig(handle, format="png", dpi=90)
     return path
@@ -331,9 +416,9 @@ def _fmt(value: float | None, digits: str = ".3g") -> str:
 
 def markdown(report: Report) -> str:
     name = Path(report.recording).name
-    lines = [f"# Bench report: {name}", ""]
+    lines = [f"# Bench report: {name}" + (f" ({report.robot})" if report.robot else ""), ""]
     lines.append(f"Program: {report.program or 'unknown'}; {report.rows} rows over {report.duration_s:.1f} s.")
-    lines += ["", *[f"- {note}" for note in report.notes], ""] if report.notes else [""]
+    lines += ["", "## Notes", "", *[f"- {note}" for note in report.notes], ""] if report.notes else [""]
     lines += ["## Segments", "",
               "| # | segment | axis | dead time s | rise 10-90 % s | overshoot % | settling 2 % s | steady-state error"
               " | peak accel (cmd / achieved) | peak jerk (cmd / achieved) | tracking RMS | L-R mismatch RMS / peak"
@@ -352,15 +437,22 @@ def markdown(report: Report) -> str:
               "settling band is 2 % or 3 standard deviations of the steady-state noise, whichever is wider; "
               "peak accelerations and jerks are per second of the axis unit.", "",
               "## Wheel response (first order plus dead time)", "",
-              "| wheel | gain | time constant s | dead time s | R^2 | NRMSE |", "|---|---|---|---|---|---|"]
+              "| wheel | gain | time constant s | dead time s | R^2 | NRMSE | quality gates |",
+              "|---|---|---|---|---|---|---|"]
     for wheel, fit in report.fits.items():
+        gates = "; ".join(report.fit_problems.get(wheel, ())) or "pass"
         if fit is None:
-            lines.append(f"| {wheel} | - | - | - | - | - |")
+            lines.append(f"| {wheel} | - | - | - | - | - | {gates} |")
         else:
             lines.append(f"| {wheel} | {fit.gain:.3f} | {fit.tau_s:.4f} | {fit.dead_time_s:.4f} | {fit.r2:.4f} | "
-                         f"{fit.nrmse:.4f} |")
+                         f"{fit.nrmse:.4f} | {gates} |")
+    lines += ["", f"Quality gates: R^2 >= {analysis.MIN_FIT_R2}, a positive gain, no parameter at its search bound, "
+              f"at least {analysis.MIN_MOVING_SAMPLES} samples with the command moving. Limits are suggested only "
+              "from fits that pass, on a robot whose polarity check (if the recording has one) found nothing."]
     if report.limits is not None:
         lines += ["", "## Suggested limits", "", "```toml", (report.limits_snippet() or "").rstrip(), "```"]
+    else:
+        lines += ["", "## Suggested limits", "", "None: see the notes at the top (polarity before limits)."]
     if report.polarity is not None:
         lines += ["", "## Polarity and encoder check", ""]
         lines += [f"- **{f.kind}**: {f.text}" for f in report.polarity.findings]

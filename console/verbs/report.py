@@ -5,13 +5,19 @@ from __future__ import annotations
 import argparse
 import json
 from pathlib import Path
+from typing import TYPE_CHECKING
 
+from rich import box
 from rich.console import Console
+from rich.measure import Measurement
 from rich.table import Table
 
 from console.bench.recording import read_recording
 from console.errors import InputError, OutputError
 from console.files import STDOUT, atomic_output
+
+if TYPE_CHECKING:
+    from console.bench.report import Report
 
 NAME = "report"
 HELP = "analyze a recording: step metrics, wheel response fits, suggested limits, polarity, figures"
@@ -24,6 +30,47 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--json", action="store_true", help="print the report as one JSON object on stdout")
     parser.add_argument("--tolerance-mps", type=float, metavar="M_PER_S",
                         help="speed tracking error the suggested limits keep (default: 5 %% of the top speed)")
+
+
+TEXT_COLUMNS = ("segment", "axis")
+NUMBER_COLUMNS = ("dead s", "rise s", "overshoot %", "settle s", "ss error", "peak accel", "peak jerk")
+
+
+def _fmt(value: float | None, spec: str = ".3g") -> str:
+    return "-" if value is None else format(value, spec)
+
+
+def _segment_rows(report: Report) -> list[tuple[str, ...]]:
+    rows = []
+    for s in report.segments:
+        m = s.step
+        rows.append((s.name, f"{s.axis} ({s.unit})", _fmt(m.dead_time_s if m else None),
+                     _fmt(m.rise_time_s if m else None), _fmt(m.overshoot_pct if m else None, ".1f"),
+                     _fmt(m.settling_time_s if m else None), _fmt(m.steady_state_error if m else None),
+                     _fmt(s.peak_accel), _fmt(s.peak_jerk)))
+    return rows
+
+
+def print_segments(console: Console, report: Report, title: str) -> None:
+    """The segment metrics, never cut: a table where it fits (piped output: as wide as it needs), else one block of
+    lines per segment. Rich squeezes a table that does not fit by cutting headers and numbers, which misleads."""
+    rows = _segment_rows(report)
+    table = Table(title=title, box=box.SIMPLE_HEAD, pad_edge=False)
+    for column in TEXT_COLUMNS + NUMBER_COLUMNS:
+        table.add_column(column, no_wrap=True, justify="left" if column in TEXT_COLUMNS else "right")
+    for row in rows:
+        table.add_row(*row)
+    needed = Measurement.get(console, console.options.update_width(10_000), table).maximum
+    if not console.is_terminal and console.width < needed:
+        console = Console(file=console.file, width=needed)
+    if console.width >= needed:
+        console.print(table)
+        return
+    console.print(title, markup=False, highlight=False)
+    for row in rows:
+        console.print(f"{row[0]} ({row[1]}): " + ", ".join(f"{name} {value}" for name, value
+                                                            in zip(NUMBER_COLUMNS, row[2:])),
+                      markup=False, highlight=False)
 
 
 def run(args: argparse.Namespace) -> int:
@@ -43,25 +90,13 @@ def run(args: argparse.Namespace) -> int:
         return 0
     with atomic_output(STDOUT):                  # a full or closed standard output is one line too
         console = Console()
-        table = Table(title=f"{Path(args.recording).name}: {report.program or 'recording'}")
-        for column in ("segment", "axis", "dead s", "rise s", "overshoot %", "settle s", "ss error", "peak accel",
-                       "peak jerk"):
-            table.add_column(column)
-
-        def fmt(value: float | None, spec: str = ".3g") -> str:
-            return "-" if value is None else format(value, spec)
-
-        for s in report.segments:
-            m = s.step
-            table.add_row(s.name, f"{s.axis} ({s.unit})", fmt(m.dead_time_s if m else None),
-                          fmt(m.rise_time_s if m else None), fmt(m.overshoot_pct if m else None, ".1f"),
-                          fmt(m.settling_time_s if m else None), fmt(m.steady_state_error if m else None),
-                          fmt(s.peak_accel), fmt(s.peak_jerk))
-        console.print(table)
+        print_segments(console, report, f"{Path(args.recording).name}: {report.program or 'recording'}")
         for wheel, fit in report.fits.items():
             if fit is not None:
+                gates = "fails its quality gates" if report.fit_problems.get(wheel) else "passes its quality gates"
                 console.print(f"{wheel} wheel: gain {fit.gain:.3f}, time constant {fit.tau_s * 1e3:.1f} ms, dead time "
-                              f"{fit.dead_time_s * 1e3:.1f} ms (R^2 {fit.r2:.4f}, NRMSE {fit.nrmse:.4f})")
+                              f"{fit.dead_time_s * 1e3:.1f} ms (R^2 {fit.r2:.4f}, NRMSE {fit.nrmse:.4f}): {gates}",
+                              markup=False)
         if report.limits is not None:
             console.print(report.limits_snippet(), markup=False, highlight=False)
         if report.polarity is not None:

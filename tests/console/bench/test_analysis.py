@@ -121,3 +121,45 @@ def test_suggested_acceleration_keeps_the_stated_ramp_tracking_error() -> None:
     jerk = limits.wheel_jerk_radps3 * t
     accel = np.gradient(_lsim_fopdt(t, 0.5 * limits.wheel_jerk_radps3 * t**2, 1.0, fit.tau_s, fit.dead_time_s), t)
     assert (jerk - accel)[-10] == pytest.approx(analysis.ACCEL_ERROR_SHARE * limits.wheel_accel_radps2, rel=0.01)
+
+
+# --- quality gates: each synthetic response breaks one assumption of the fit on purpose ----------------------------
+
+def _steps(dt: float = 0.01) -> tuple[np.ndarray, np.ndarray]:
+    t = np.arange(0.0, 12.0, dt)
+    return t, np.select([t < 1, t < 4, t < 7, t < 9], [0.0, 5.0, 0.0, -3.0], 0.0)
+
+
+def test_a_healthy_wheel_passes_every_gate() -> None:
+    t, u = _steps()
+    fit = analysis.fit_fopdt(t, u, _lsim_fopdt(t, u, 1.0, 0.06, 0.02))
+    assert analysis.fit_problems(fit) == ()
+
+
+def test_a_reversed_encoder_fails_the_sign_gate() -> None:
+    t, u = _steps()
+    fit = analysis.fit_fopdt(t, u, -_lsim_fopdt(t, u, 1.0, 0.06, 0.02))     # measured = -(true wheel rate)
+    assert fit.gain == pytest.approx(-1.0, rel=0.02)
+    assert [p.split()[0] for p in analysis.fit_problems(fit)] == ["gain"]
+
+
+def test_a_dead_time_beyond_the_search_range_is_reported_at_its_bound() -> None:
+    t, u = _steps()
+    fit = analysis.fit_fopdt(t, u, _lsim_fopdt(t, u, 1.0, 0.06, 1.6))       # 1.6 s: past the 1 s bound
+    assert "dead time" in fit.at_bound
+    assert any(p.startswith("dead time at its search bound") for p in analysis.fit_problems(fit))
+
+
+def test_a_response_unrelated_to_the_command_fails_the_goodness_of_fit_gate() -> None:
+    t, u = _steps()
+    noise = np.random.default_rng(3).normal(0.0, 1.0, t.size)               # the wheel does not follow at all
+    problems = analysis.fit_problems(analysis.fit_fopdt(t, u, noise))
+    assert any(p.startswith("R^2") for p in problems), problems
+
+
+def test_a_short_pulse_has_too_few_samples_to_fit() -> None:
+    t = np.arange(0.0, 5.0, 0.01)
+    u = np.where((t >= 1.0) & (t < 1.3), 4.0, 0.0)                           # 30 samples of commanded motion
+    fit = analysis.fit_fopdt(t, u, _lsim_fopdt(t, u, 1.0, 0.06, 0.02))
+    assert fit.moving_samples == 30
+    assert any("too few" in p for p in analysis.fit_problems(fit))

@@ -86,9 +86,16 @@ def test_polarity_check_names_each_wiring_fault_and_its_fix(tmp_path: Path, faul
                                                             fix: dict) -> None:
     profile = _profile(tmp_path, {("sim", key): value for key, value in fault.items()})
     result = BenchRun(profile, builtin("polarity"), out_dir=tmp_path).run_to_end()
-    polarity = analyze(read_recording(result.recording)).polarity
+    report = analyze(read_recording(result.recording))
+    polarity = report.polarity
     assert {f.kind for f in polarity.findings} == kinds
     assert polarity.fix == pytest.approx(fix, rel=0.005)
+    if fault:         # polarity before limits: a robot wired wrong gets no limits, and is told what to check first
+        assert report.limits is None
+        assert report.notes[0].startswith("check polarity first")
+        assert "no limits suggested: a wiring fault comes first (see the polarity check)" in report.notes
+    else:
+        assert report.limits is not None and report.notes == ()
     if not fix:
         return
     # the proposed profile change really fixes it: the check on the corrected profile finds nothing
@@ -193,3 +200,39 @@ def test_on_hardware_the_operators_observation_settles_what_telemetry_cannot(
     polarity = analyze(read_recording(csv)).polarity
     assert [f.kind for f in polarity.findings] == [kind]
     assert polarity.fix == fix
+
+
+def _report_files(tmp_path: Path, fault: dict, program: str) -> tuple[object, str, dict]:
+    profile = _profile(tmp_path, {("sim", key): value for key, value in fault.items()})
+    rec = read_recording(BenchRun(profile, builtin(program), out_dir=tmp_path).run_to_end().recording)
+    report = analyze(rec)
+    write_report(rec, report, tmp_path / "out")
+    return (report, (tmp_path / "out" / "summary.md").read_text(),
+            json.loads((tmp_path / "out" / "report.json").read_text()))
+
+
+def test_a_polarity_run_on_a_robot_wired_wrong_suggests_no_limits(tmp_path: Path) -> None:
+    # the case: the wheel fits mean nothing (R^2 about 0.04 and 0, a dead time stuck at the 1 s bound)
+    report, summary, data = _report_files(tmp_path, {"swap_motors": True, "invert_right_encoder": True}, "polarity")
+    assert report.limits is None and data["limits_snippet"] is None
+    assert "[limits]" not in summary and "None: see the notes at the top" in summary
+    left = report.fit_problems["left"]
+    assert any(p.startswith("R^2") for p in left) and any(p.startswith("dead time at its search bound") for p in left)
+    assert any(p.startswith("R^2") for p in report.fit_problems["right"])
+    assert data["notes"] == list(report.notes) and data["notes"][0].startswith("check polarity first")
+    for note in data["notes"]:
+        assert f"- {note}" in summary
+    assert any(n.startswith("left wheel fit fails its quality gates") for n in data["notes"])
+
+
+def test_a_chirp_on_a_robot_with_a_reversed_encoder_suggests_no_limits(tmp_path: Path) -> None:
+    report, summary, data = _report_files(tmp_path, {"invert_right_encoder": True}, "chirp")
+    # the encoder counts backwards: the measured right wheel is the true one negated, a gain of -1
+    assert report.fits["right"].gain == pytest.approx(-1.0, rel=0.02)
+    assert report.fits["left"].gain == pytest.approx(1.0, rel=0.02)
+    assert report.limits is None and data["limits_snippet"] is None
+    assert report.fit_problems["left"] == () and report.fit_problems["right"][0].startswith("gain")
+    assert data["notes"][0] == ("check polarity first: the right wheel's fit has a gain of the wrong sign; run the "
+                                "`polarity` bench program and fix [units] before tuning limits")
+    assert "no limits suggested: the right wheel fit fails its quality gates" in data["notes"]
+    assert "| right | -1.000 |" in summary
