@@ -10,6 +10,7 @@ observation the check says what to watch for instead of guessing.
 
 from __future__ import annotations
 
+import itertools
 import json
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -18,6 +19,7 @@ import numpy as np
 
 from console.bench.recording import Recording
 from console.files import write_atomic
+from shaping.units import WheelUnits
 
 WHEELS = ("left", "right")
 DEAD_SHARE = 0.2          # a channel moving no wheel by more than 20 % of the command is dead
@@ -34,10 +36,30 @@ class Finding:
 
 
 @dataclass(frozen=True, slots=True)
+class Candidate:
+    """One wiring that explains the telemetry, what a hand turn of the wheels shows if it is the true one, its fix."""
+
+    wiring: str
+    hand_turn: dict[str, tuple[str, int]]   # wheel turned forwards by hand -> (measured rate that moves, +1 / -1)
+    check: str
+    fix: dict[str, object]
+
+
+@dataclass(frozen=True, slots=True)
 class PolarityReport:
     measured: tuple[tuple[float, float], tuple[float, float]]    # [commanded channel][wheel] measured / commanded
     physical: tuple[tuple[float, float], tuple[float, float]] | None   # same from the true pose (sim only)
     findings: tuple[Finding, ...]
+    candidates: tuple[Candidate, ...] = ()   # telemetry alone, several wirings fit: one block each, none to paste
+
+    def candidate_blocks(self) -> str:
+        """Each candidate's [units] block under the hand-turn result that identifies it (empty: not ambiguous)."""
+        blocks = []
+        for c in self.candidates:
+            lines = [f"# if {c.check}: {c.wiring}", "[units]"]
+            lines += [f"{key} = {str(value).lower()}" for key, value in c.fix.items()] or ["# no change"]
+            blocks.append("\n".join(lines) + "\n")
+        return "\n".join(blocks)
 
     @property
     def fix(self) -> dict[str, object]:
@@ -146,6 +168,16 @@ def check_polarity(rec: Recording, units: dict[str, object] | None = None) -> Po
     p = (physical[0], physical[1]) if physical is not None else None
     if p is None and rec.bench is not None and isinstance(rec.bench.get("observed"), dict):
         p = observed_response(rec.bench["observed"])      # hardware: what the operator saw
+    if p is None and _telemetry_is_a_wiring(m):
+        candidates, wheels = _candidates(m, units)
+        if len(candidates) > 1:
+            text = (f"{len(candidates)} wirings explain this run equally well and the telemetry cannot tell them "
+                    "apart, so there is no single change to paste. With the robot disarmed, turn the "
+                    f"{' wheel, then the '.join(wheels)} wheel"
+                    " forwards by hand, watch the measured wheel rates and use the block below that matches (or "
+                    "run `bench ... polarity` on hardware and answer which wheel turned)")
+            scale = [f for f in _diagnose(m, p, units) if f.kind == "scale"]
+            return PolarityReport(m, p, (Finding("ambiguous", text), *scale), candidates)
     return PolarityReport(m, p, tuple(_diagnose(m, p, units)))
 
 
@@ -155,6 +187,81 @@ def _pair(values: np.ndarray) -> tuple[float, float]:
 
 def _flip(units: dict[str, object], key: str) -> dict[str, object]:
     return {key: not bool(units.get(key, False))}
+
+
+WIRING_KEYS = ("swap_motors", "invert_left", "invert_right", "swap_encoders", "invert_left_encoder",
+               "invert_right_encoder")
+
+
+def _matrices(keys: dict[str, bool]) -> tuple[np.ndarray, np.ndarray]:
+    """The console's wheel -> firmware command matrix and firmware measurement -> wheel matrix for these keys,
+    taken from shaping.units itself (so the candidates use exactly the corrections the loop applies)."""
+    units = WheelUnits(**keys)
+    command = np.column_stack([units.to_motor(1.0, 0.0), units.to_motor(0.0, 1.0)])
+    measure = np.column_stack([units.measured_from_motor(1.0, 0.0), units.measured_from_motor(0.0, 1.0)])
+    return np.sign(command), np.sign(measure)
+
+
+SIGNED_PERMUTATIONS = [np.diag(signs) @ perm for perm in (np.eye(2), np.eye(2)[::-1])
+                       for signs in itertools.product((1.0, -1.0), repeat=2)]
+
+
+def _faults(x: np.ndarray) -> int:
+    """Wiring faults in a signed permutation: a swap counts one, each reversed wire one."""
+    return int(x[0, 0] == 0.0) + int(np.count_nonzero(x < 0.0))
+
+
+def _describe(motors: np.ndarray, encoders: np.ndarray) -> str:
+    """Words for a wiring: motors[wheel, channel] (firmware command -> wheel), encoders[channel, wheel]."""
+    parts = []
+    if motors[0, 0] == 0.0:
+        parts.append("the motor channels are swapped")
+    parts += [f"the {WHEELS[w]} motor turns backwards" for w in range(2) if np.min(motors[w]) < 0.0]
+    if encoders[0, 0] == 0.0:
+        parts.append("the encoder channels are swapped")
+    parts += [f"the {WHEELS[w]} encoder counts backwards" for w in range(2) if np.min(encoders[:, w]) < 0.0]
+    return ", ".join(parts) or "correct"
+
+
+def _candidates(m: tuple, units: dict[str, object]) -> tuple[tuple[Candidate, ...], tuple[str, ...]]:
+    """Every wiring with the fewest faults that explains the telemetry m, with the hand turn that identifies it.
+
+    Telemetry only shows the product of two wirings: the console's command -> wheel (a) and wheel -> console's
+    measurement (b = t a^-1). Turning a wheel by hand, with no motor power, shows b alone, so it tells the
+    candidates apart: the left wheel alone when that suffices, else both.
+    """
+    current = {key: bool(units.get(key, False)) for key in WIRING_KEYS}
+    command, measure = _matrices(current)
+    t = np.array([[np.sign(m[c][w]) if abs(m[c][w]) >= DEAD_SHARE else 0.0 for c in range(2)] for w in range(2)])
+    found = []
+    for a in SIGNED_PERMUTATIONS:
+        b = t @ a.T                                   # a^-1 = a^T for a signed permutation
+        motors, encoders = a @ command.T, measure.T @ b      # firmware-level wiring (command, measure: orthogonal)
+        found.append((_faults(motors) + _faults(encoders), motors, encoders, b))
+    fewest = min(f[0] for f in found)
+    found = [f for f in found if f[0] == fewest]
+    table = {tuple(bool(v) for v in combo): _matrices(dict(zip(WIRING_KEYS, combo)))
+             for combo in itertools.product((False, True), repeat=len(WIRING_KEYS))}
+    left_alone = len({(tuple(f[3][:, 0])) for f in found}) == len(found)
+    shown = ("left",) if left_alone else WHEELS
+    out = []
+    for _, motors, encoders, b in found:
+        # the keys whose corrections undo this wiring: command' = motors^-1, measure' = encoders^-1
+        keys = next(combo for combo, (c, r) in table.items()
+                    if np.array_equal(motors @ c, np.eye(2)) and np.array_equal(r @ encoders, np.eye(2)))
+        fix = {key: value for key, value in zip(WIRING_KEYS, keys) if value != current[key]}
+        hand = {WHEELS[w]: (WHEELS[int(np.argmax(np.abs(b[:, w])))], int(np.sum(b[:, w]))) for w in range(2)}
+        check = " and ".join(f"turning the {wheel} wheel forwards by hand makes the measured {hand[wheel][0]} rate "
+                             f"{'rise' if hand[wheel][1] > 0 else 'fall'}" for wheel in shown)
+        out.append(Candidate(_describe(motors, encoders), hand, check, fix))
+    return tuple(out), shown
+
+
+def _telemetry_is_a_wiring(m: tuple) -> bool:
+    """Each channel shows on one wheel, a different one each, clearly: a wiring, not a dead wheel or a unit fault."""
+    strongest = [int(np.argmax([abs(v) for v in m[c]])) for c in range(2)]
+    return (strongest[0] != strongest[1] and all(abs(m[c][strongest[c]]) >= DEAD_SHARE for c in range(2))
+            and not all(strongest[c] == c and m[c][c] > 0 for c in range(2)))
 
 
 def _diagnose(m: tuple, p: tuple | None, units: dict[str, object]) -> list[Finding]:

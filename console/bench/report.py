@@ -86,6 +86,7 @@ class Report:
         data = plain(self)
         data["limits_snippet"] = self.limits_snippet()
         data["polarity_snippet"] = self.polarity.snippet() if self.polarity else None
+        data["polarity_candidate_blocks"] = self.polarity.candidate_blocks() if self.polarity else None
         return data
 
 
@@ -232,7 +233,11 @@ def analyze(rec: Recording, speed_error_mps: float | None = None) -> Report:
     polarity = check_polarity(rec, _profile_table(rec, "units"))
     wiring = [f.kind for f in polarity.findings if f.kind != "ok"] if polarity is not None else []
     reversed_fit = [w for w, fit in fits.items() if fit is not None and fit.gain <= 0.0]
-    if wiring:
+    if "ambiguous" in wiring:
+        notes.append("check polarity first: several wirings explain this run; do the hand check the polarity check "
+                     "names (below), apply the one [units] block that matches, run the `polarity` bench program "
+                     "again, then tune limits")
+    elif wiring:
         notes.append(f"check polarity first: the polarity check found: {', '.join(wiring)}; fix [units] as it "
                      "says (below), run the `polarity` bench program again, then tune limits")
     elif reversed_fit:
@@ -459,6 +464,9 @@ def markdown(report: Report) -> str:
         snippet = report.polarity.snippet()
         if snippet:
             lines += ["", "Profile change:", "", "```toml", snippet.rstrip(), "```"]
+        if report.polarity.candidates:
+            lines += ["", "One of these profile changes, after the check that tells them apart (never more than one):",
+                      "", "```toml", report.polarity.candidate_blocks().rstrip(), "```"]
     lines += ["", "## Figures", ""]
     lines += [f"![{Path(f).stem}]({f})" for f in FIGURES]
     return "\n".join(lines) + "\n"

@@ -104,6 +104,8 @@ def run(args: argparse.Namespace) -> int:
                 console.print(f"polarity: {finding.kind}: {finding.text}", markup=False)
             if report.polarity.snippet():
                 console.print(report.polarity.snippet(), markup=False, highlight=False)
+            if report.polarity.candidates:
+                console.print(report.polarity.candidate_blocks(), markup=False, highlight=False)
         for note in report.notes:
             console.print(f"note: {note}", markup=False)
         console.print(f"report: {out / 'summary.md'} (+ {', '.join(p.name for p in paths if p.name != 'summary.md')})")

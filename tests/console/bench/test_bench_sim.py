@@ -236,3 +236,31 @@ def test_a_chirp_on_a_robot_with_a_reversed_encoder_suggests_no_limits(tmp_path:
                                 "`polarity` bench program and fix [units] before tuning limits")
     assert "no limits suggested: the right wheel fit fails its quality gates" in data["notes"]
     assert "| right | -1.000 |" in summary
+
+
+def test_without_an_observation_an_ambiguous_wiring_gets_one_block_per_candidate_and_the_check(
+        tmp_path: Path) -> None:
+    # swapped motors plus a reversed right encoder, on hardware (no true pose) and with nobody watching the wheels
+    fault = {"swap_motors": True, "invert_right_encoder": True}
+    profile = _profile(tmp_path, {("sim", key): value for key, value in fault.items()})
+    csv = _without_pose(BenchRun(profile, builtin("polarity"), out_dir=tmp_path).run_to_end(), tmp_path)
+    report = analyze(read_recording(csv))
+    polarity = report.polarity
+    assert polarity.snippet() == "" and polarity.fix == {}            # no single block to paste
+    assert [f.kind for f in polarity.findings] == ["ambiguous"]
+    assert len(polarity.candidates) >= 2
+    assert len({tuple(sorted(c.hand_turn.items())) for c in polarity.candidates}) == len(polarity.candidates)
+    write_report(read_recording(csv), report, tmp_path / "out")
+    summary = (tmp_path / "out" / "summary.md").read_text()
+    assert "Profile change:" not in summary and summary.count("\n[units]\n") == len(polarity.candidates)
+    # what a hand turn shows on this robot, from the [sim] keys' meaning: the encoders are not swapped, the left one
+    # counts the right way, the right one backwards
+    truth = {"left": ("left", 1), "right": ("right", -1)}
+    for candidate in polarity.candidates:
+        assert candidate.check and candidate.fix
+        fixed = _profile(tmp_path, {**{("sim", k): v for k, v in fault.items()},
+                                    **{("units", k): v for k, v in candidate.fix.items()}}, "fixed.toml")
+        again = BenchRun(fixed, builtin("polarity"), out_dir=tmp_path / "fixed").run_to_end()
+        kinds = [f.kind for f in analyze(read_recording(again.recording)).polarity.findings]
+        # the block the hand turn picks fixes the robot; every other block leaves it wired wrong
+        assert (kinds == ["ok"]) == (candidate.hand_turn == truth), (candidate, kinds)
