@@ -13,9 +13,13 @@ import numpy as np
 from scipy import optimize, signal
 
 RISE_LOW, RISE_HIGH = 0.1, 0.9          # 10-90 % rise time (common practice)
-SETTLING_BAND = 0.02                    # 2 % settling criterion (common practice)
+SETTLING_BAND = 0.02                    # 2 % settling criterion (Ogata, Modern Control Engineering, 5th ed., 2010,
+                                        # transient-response specifications: "usually 2 % or 5 %"; from memory)
 DEAD_BAND = 0.02                        # the response "starts" when it leaves 2 % of its change (common practice)
 FINAL_SHARE = 0.1                       # the steady state is the mean of the last 10 % of a step's window
+REST_WINDOW_S = 1.0                     # the noise at rest is measured over up to 1 s before the step
+NOISE_BAND_SIGMAS = 5.0                 # a settling band noise alone cannot leave: Gaussian noise passes 5 sigma with
+                                        # probability 5.7e-7 per sample, about 1e-3 in a 20 s window at 100 Hz
 MIN_RESPONSE_SHARE = 0.05              # a response that changes by less than 5 % of the step did not follow it
 MIN_STEP_SAMPLES = 10                   # fewer samples after a step: no step metrics (our choice)
 ACCEL_WINDOW_S = 0.15                   # Savitzky-Golay window for the first derivative
@@ -40,7 +44,7 @@ class StepMetrics:
     overshoot_pct: float | None
     settling_time_s: float | None
     steady_state_error: float
-    settling_band_pct: float = 100 * SETTLING_BAND   # widened to 3 sigma of the steady-state noise when that is larger
+    settling_band_pct: float = 100 * SETTLING_BAND   # widened to 5 sigma of the noise at rest when that is larger
 
 
 def _first_crossing(t: np.ndarray, z: np.ndarray, level: float) -> float | None:
@@ -68,7 +72,9 @@ def step_metrics(t: np.ndarray, y: np.ndarray, t_step: float, request_before: fl
     initial = float(np.mean(y[before])) if np.any(before) else float(ya[0])
     tail = max(3, int(math.ceil(FINAL_SHARE * ta.size)))
     final = float(np.mean(ya[-tail:]))
-    noise = float(np.std(ya[-tail:]))
+    rest = valid & (t < t_step) & (t >= t_step - REST_WINDOW_S)
+    # the noise of the measurement at rest before the step; without a lead, the steady tail's (it may hold motion)
+    noise = float(np.std(y[rest])) if np.count_nonzero(rest) >= MIN_STEP_SAMPLES else float(np.std(ya[-tail:]))
     change = final - initial
     error = request_after - final
     if abs(change) < 1e-9 or abs(change) < MIN_RESPONSE_SHARE * abs(request_after - request_before):
@@ -79,7 +85,7 @@ def step_metrics(t: np.ndarray, y: np.ndarray, t_step: float, request_before: fl
     t10, t90 = _first_crossing(rel, z, RISE_LOW), _first_crossing(rel, z, RISE_HIGH)
     rise = None if t10 is None or t90 is None else t90 - t10
     overshoot = max(0.0, float(np.max(z)) - 1.0) * 100.0
-    band = max(SETTLING_BAND, 3.0 * noise / abs(change))
+    band = max(SETTLING_BAND, NOISE_BAND_SIGMAS * noise / abs(change))
     outside = np.flatnonzero(np.abs(z - 1.0) > band)
     if outside.size == 0:
         settling: float | None = 0.0

@@ -439,7 +439,8 @@ def markdown(report: Report) -> str:
             f"{_fmt(s.peak_jerk_cmd)} / {_fmt(s.peak_jerk)} | {_fmt(s.tracking_rms)} | "
             f"{_fmt(s.mismatch_rms_radps)} / {_fmt(s.mismatch_peak_radps)} |")
     lines += ["", "Step metrics are timed from the request step, relative to the response's own change; the "
-              "settling band is 2 % or 3 standard deviations of the steady-state noise, whichever is wider; "
+              "settling band is 2 % of the change or 5 standard deviations of the noise at rest before the step, "
+              "whichever is wider; "
               "peak accelerations and jerks are per second of the axis unit.", "",
               "## Wheel response (first order plus dead time)", "",
               "| wheel | gain | time constant s | dead time s | R^2 | NRMSE | quality gates |",

@@ -163,3 +163,20 @@ def test_a_short_pulse_has_too_few_samples_to_fit() -> None:
     fit = analysis.fit_fopdt(t, u, _lsim_fopdt(t, u, 1.0, 0.06, 0.02))
     assert fit.moving_samples == 30
     assert any("too few" in p for p in analysis.fit_problems(fit))
+
+
+def test_settling_on_a_noisy_step_is_set_by_the_response_not_by_a_late_noise_excursion() -> None:
+    # a first-order step of 1 with Gaussian measurement noise (sigma 0.01): the band is 5 sigma = 5 % of the
+    # change, so the noise-free response settles into it at T ln(1 / 0.05) = 3.0 T (the first-order step response
+    # c(t) = 1 - exp(-t / T), Ogata, Modern Control Engineering, 5th ed., 2010; from memory). With a 2 % band (or 3
+    # sigma of the tail) the 20 s window's noise leaves the band again and again: settling would read seconds.
+    tau, sigma, dt = 0.1, 0.01, 0.01
+    t = np.arange(0.0, 21.0, dt)
+    rng = np.random.default_rng(11)
+    y = _first_order(t, 1.0, tau, 0.0, 1.0, 1.0) + rng.normal(0.0, sigma, t.size)
+    m = analysis.step_metrics(t, y, 1.0, 0.0, 1.0)
+    assert m.settling_band_pct == pytest.approx(5.0, rel=0.1)        # 5 sigma, sigma estimated from 1 s at rest
+    band = m.settling_band_pct / 100
+    # within two samples plus the time the noise (1 sigma) adds where the response crosses the band edge
+    slack = 2 * dt + tau * sigma / band
+    assert m.settling_time_s == pytest.approx(tau * math.log(1 / band), abs=slack)
