@@ -264,3 +264,35 @@ def test_without_an_observation_an_ambiguous_wiring_gets_one_block_per_candidate
         kinds = [f.kind for f in analyze(read_recording(again.recording)).polarity.findings]
         # the block the hand turn picks fixes the robot; every other block leaves it wired wrong
         assert (kinds == ["ok"]) == (candidate.hand_turn == truth), (candidate, kinds)
+
+
+def test_every_figure_names_recording_and_robot_labels_segments_and_shows_the_failed_gates(
+        tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> None:
+    import console.bench.report as report_module
+
+    seen = {}
+    save = report_module._save
+
+    def capture(fig, path, bottom=0.0):
+        texts = [t.get_text() for t in fig.texts]
+        labels = [label.get_text() for ax in fig.findobj(lambda o: hasattr(o, "get_xticklabels"))
+                  for label in ax.get_xticklabels()]
+        legends = [t.get_text() for ax in fig.axes if ax.get_legend() for t in ax.get_legend().get_texts()]
+        seen[path.name] = (fig._suptitle.get_text(), texts, labels, legends)
+        return save(fig, path, bottom)
+
+    monkeypatch.setattr(report_module, "_save", capture)
+    profile = _profile(tmp_path, {("sim", "invert_right_encoder"): True})
+    rec = read_recording(BenchRun(profile, builtin("step"), out_dir=tmp_path).run_to_end().recording)
+    write_report(rec, analyze(rec), tmp_path / "out")
+    assert sorted(seen) == sorted(FIGURES)
+    for name, (title, texts, labels, _) in seen.items():
+        assert rec.path.name in title and profile.name in title, name
+        assert "1 speed down" in labels and "3 turn down" in labels, name
+        assert any("no limits suggested" in text for text in texts), name
+    # a healthy robot: the stated tolerance band is in the tracking figure's legend
+    seen.clear()
+    rec = read_recording(BenchRun(load_profile(WREN), builtin("step"), out_dir=tmp_path / "ok").run_to_end().recording)
+    report = analyze(rec)
+    write_report(rec, report, tmp_path / "ok" / "out")
+    assert f"stated tolerance \u00b1{report.limits.speed_error_mps:.3g} m/s" in seen["tracking.png"][3]

@@ -100,3 +100,40 @@ def test_typed_end_positions(text: str, expected: tuple[float, float]) -> None:
 def test_bad_typed_end_positions(text: str) -> None:
     with pytest.raises(InputError, match="end position"):
         parse_end_position(text)
+
+
+HEADERS = ("segment", "axis", "dead s", "rise s", "overshoot %", "settle s", "ss error", "peak accel", "peak jerk")
+
+
+def test_the_segment_table_keeps_every_header_and_number_whole_when_piped(tmp_path: Path,
+                                                                          capsys: pytest.CaptureFixture[str]) -> None:
+    result = BenchRun(load_profile(WREN), builtin("step"), out_dir=tmp_path).run_to_end()
+    assert main(["report", str(result.recording), "-o", str(tmp_path / "out")]) == 0     # captured: a pipe
+    out = capsys.readouterr().out
+    header = next(line for line in out.splitlines() if "segment" in line and "peak jerk" in line)
+    for name in HEADERS:
+        assert name in header
+    assert "\u2026" not in out                      # rich's ellipsis: nothing was cut
+    assert "turn up" in out and "turn (rad/s)" in out
+
+
+def test_in_a_narrow_terminal_the_segments_are_lines_instead_of_a_cut_table(tmp_path: Path) -> None:
+    from io import StringIO
+
+    from rich.console import Console
+
+    from console.bench.recording import read_recording
+    from console.bench.report import analyze
+    from console.verbs.report import print_segments
+
+    result = BenchRun(load_profile(WREN), builtin("step"), out_dir=tmp_path).run_to_end()
+    report = analyze(read_recording(result.recording))
+    screen = StringIO()
+    print_segments(Console(file=screen, width=60, force_terminal=True, color_system=None), report, "title")
+    text = screen.getvalue()
+    assert "\u2026" not in text
+    speed_up = report.segments[0]
+    joined = " ".join(text.split())                  # lines wrap between words only
+    assert f"speed up (speed (m/s)): dead s {speed_up.step.dead_time_s:.3g}," in joined
+    assert f"peak jerk {speed_up.peak_jerk:.3g}" in joined
+    assert max(len(line) for line in text.splitlines()) <= 60
