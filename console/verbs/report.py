@@ -9,12 +9,12 @@ from typing import TYPE_CHECKING
 
 from rich import box
 from rich.console import Console
-from rich.measure import Measurement
 from rich.table import Table
 
 from console.bench.recording import read_recording
 from console.errors import InputError, OutputError
 from console.files import STDOUT, atomic_output
+from console.tables import console_for
 
 if TYPE_CHECKING:
     from console.bench.report import Report
@@ -52,19 +52,17 @@ def _segment_rows(report: Report) -> list[tuple[str, ...]]:
 
 
 def print_segments(console: Console, report: Report, title: str) -> None:
-    """The segment metrics, never cut: a table where it fits (piped output: as wide as it needs), else one block of
-    lines per segment. Rich squeezes a table that does not fit by cutting headers and numbers, which misleads."""
+    """The segment metrics, never cut: a table where it fits (piped output: as wide as it needs), else one line (or
+    a few, wrapped between words) per segment."""
     rows = _segment_rows(report)
     table = Table(title=title, box=box.SIMPLE_HEAD, pad_edge=False)
     for column in TEXT_COLUMNS + NUMBER_COLUMNS:
         table.add_column(column, no_wrap=True, justify="left" if column in TEXT_COLUMNS else "right")
     for row in rows:
         table.add_row(*row)
-    needed = Measurement.get(console, console.options.update_width(10_000), table).maximum
-    if not console.is_terminal and console.width < needed:
-        console = Console(file=console.file, width=needed)
-    if console.width >= needed:
-        console.print(table)
+    fitting = console_for(console, table)
+    if fitting is not None:
+        fitting.print(table)
         return
     console.print(title, markup=False, highlight=False)
     for row in rows:
