@@ -201,3 +201,24 @@ def test_bad_profile_is_reported_before_anything_is_written(tmp_path: Path,
     assert main(["shape", str(profile), str(requests), "-o", str(out)]) == 2
     assert capsys.readouterr().err.startswith(f"diffdeck: {profile}: limits.speed_mps = 0: ")
     assert not out.exists()
+
+
+TRACES = sorted((Path(__file__).resolve().parents[2] / "profiles" / "traces").glob("*.csv"))
+
+
+@pytest.mark.parametrize("trace", TRACES, ids=[t.name for t in TRACES])
+def test_each_example_trace_shapes_on_its_profile_and_ends_at_rest(trace: Path, tmp_path: Path) -> None:
+    profile_path = trace.parents[1] / f"{trace.name.split('-')[0]}.toml"
+    envelope = load_profile(profile_path).envelope
+    out = tmp_path / "shaped.csv"
+    assert main(["shape", str(profile_path), str(trace), "-o", str(out)]) == 0
+    requests = list(csv.DictReader(io.StringIO(trace.read_text())))
+    # within the envelope as asked (an example should not lean on saturation), and the last request is rest
+    for row in requests:
+        v, omega = float(row["v_mps"]), float(row["omega_radps"])
+        assert -envelope.top_reverse_speed_mps <= v <= envelope.top_speed_mps, row
+        assert abs(omega) <= envelope.max_turn_rate_at(v) + 1e-9, row
+    assert float(requests[-1]["v_mps"]) == 0.0 and float(requests[-1]["omega_radps"]) == 0.0
+    last = list(csv.DictReader(io.StringIO(out.read_text())))[-1]
+    assert float(last["v_mps"]) == 0.0 and float(last["omega_radps"]) == 0.0
+    assert len(TRACES) >= 2
