@@ -173,7 +173,7 @@ def check_polarity(rec: Recording, units: dict[str, object] | None = None) -> Po
         if len(candidates) > 1:
             text = (f"{len(candidates)} wirings explain this run equally well and the telemetry cannot tell them "
                     "apart, so there is no single change to paste. With the robot disarmed, turn the "
-                    f"{' wheel, then the '.join(wheels)} wheel"
+                    f"{' wheel, then the '.join(wheels)} wheel{',' if len(wheels) > 1 else ''}"
                     " forwards by hand, watch the measured wheel rates and use the block below that matches (or "
                     "run `bench ... polarity` on hardware and answer which wheel turned)")
             scale = [f for f in _diagnose(m, p, units) if f.kind == "scale"]
@@ -232,7 +232,9 @@ def _candidates(m: tuple, units: dict[str, object]) -> tuple[tuple[Candidate, ..
     """
     current = {key: bool(units.get(key, False)) for key in WIRING_KEYS}
     command, measure = _matrices(current)
-    t = np.array([[np.sign(m[c][w]) if abs(m[c][w]) >= DEAD_SHARE else 0.0 for c in range(2)] for w in range(2)])
+    # t[wheel, channel]: the sign on the wheel each channel shows on most (crosstalk on the other is ignored)
+    strongest = [int(np.argmax([abs(v) for v in m[c]])) for c in range(2)]
+    t = np.array([[np.sign(m[c][w]) if w == strongest[c] else 0.0 for c in range(2)] for w in range(2)])
     found = []
     for a in SIGNED_PERMUTATIONS:
         b = t @ a.T                                   # a^-1 = a^T for a signed permutation

@@ -9,6 +9,7 @@ from __future__ import annotations
 import dataclasses
 import json
 import math
+import textwrap
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
@@ -322,8 +323,6 @@ def _figure_notes(fig: Any, report: Report) -> float:
     """The report's notes (failed quality gates first) in red under the plots; returns the height they take."""
     if not report.notes:
         return 0.0
-    import textwrap
-
     shown = [textwrap.shorten(note, 150, placeholder=" ...") for note in report.notes[:NOTE_LINES]]
     if len(report.notes) > NOTE_LINES:
         shown.append(f"(+ {len(report.notes) - NOTE_LINES} more notes in summary.md)")
