@@ -196,7 +196,10 @@ WIRING_KEYS = ("swap_motors", "invert_left", "invert_right", "swap_encoders", "i
 def _matrices(keys: dict[str, bool]) -> tuple[np.ndarray, np.ndarray]:
     """The console's wheel -> firmware command matrix and firmware measurement -> wheel matrix for these keys,
     taken from shaping.units itself (so the candidates use exactly the corrections the loop applies)."""
-    units = WheelUnits(**keys)
+    units = WheelUnits(invert_left=keys["invert_left"], invert_right=keys["invert_right"],
+                       invert_left_encoder=keys["invert_left_encoder"],
+                       invert_right_encoder=keys["invert_right_encoder"], swap_motors=keys["swap_motors"],
+                       swap_encoders=keys["swap_encoders"])
     command = np.column_stack([units.to_motor(1.0, 0.0), units.to_motor(0.0, 1.0)])
     measure = np.column_stack([units.measured_from_motor(1.0, 0.0), units.measured_from_motor(0.0, 1.0)])
     return np.sign(command), np.sign(measure)
@@ -251,7 +254,7 @@ def _candidates(m: tuple, units: dict[str, object]) -> tuple[tuple[Candidate, ..
         # the keys whose corrections undo this wiring: command' = motors^-1, measure' = encoders^-1
         keys = next(combo for combo, (c, r) in table.items()
                     if np.array_equal(motors @ c, np.eye(2)) and np.array_equal(r @ encoders, np.eye(2)))
-        fix = {key: value for key, value in zip(WIRING_KEYS, keys) if value != current[key]}
+        fix: dict[str, object] = {key: value for key, value in zip(WIRING_KEYS, keys) if value != current[key]}
         hand = {WHEELS[w]: (WHEELS[int(np.argmax(np.abs(b[:, w])))], int(np.sum(b[:, w]))) for w in range(2)}
         check = " and ".join(f"turning the {wheel} wheel forwards by hand makes the measured {hand[wheel][0]} rate "
                              f"{'rise' if hand[wheel][1] > 0 else 'fall'}" for wheel in shown)

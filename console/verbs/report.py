@@ -41,7 +41,7 @@ def _fmt(value: float | None, spec: str = ".3g") -> str:
 
 
 def _segment_rows(report: Report) -> list[tuple[str, ...]]:
-    rows = []
+    rows: list[tuple[str, ...]] = []
     for s in report.segments:
         m = s.step
         rows.append((s.name, f"{s.axis} ({s.unit})", _fmt(m.dead_time_s if m else None),
