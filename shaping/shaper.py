@@ -103,12 +103,14 @@ def _peak_product(v: tuple[float, float, float], w: tuple[float, float, float], 
     The product is a quartic; its extremes are at the ends or where its derivative (a cubic) vanishes. Only
     reached when the cheaper bound max|v| * max|omega| over the piece says the sideways limit may bind.
     """
-    product = [sum(v[i] * w[n - i] for i in range(3) if 0 <= n - i < 3) for n in range(5)]
-    candidates = [0.0, piece] + [
-        root for root in real_cubic_roots(4.0 * product[4], 3.0 * product[3], 2.0 * product[2], product[1])
-        if 0.0 < root < piece
-    ]
-    return max(abs(sum(c * tau**n for n, c in enumerate(product))) for tau in candidates)
+    (v0, v1, v2), (w0, w1, w2) = v, w
+    p0, p1, p2, p3, p4 = v0 * w0, v0 * w1 + v1 * w0, v0 * w2 + v1 * w1 + v2 * w0, v1 * w2 + v2 * w1, v2 * w2
+    peak = 0.0
+    for tau in (0.0, piece, *real_cubic_roots(4.0 * p4, 3.0 * p3, 2.0 * p2, p1)):
+        if 0.0 <= tau <= piece:
+            value = (((p4 * tau + p3) * tau + p2) * tau + p1) * tau + p0
+            peak = max(peak, value if value >= 0.0 else -value)
+    return peak
 
 
 def real_cubic_roots(c3: float, c2: float, c1: float, c0: float) -> list[float]:
@@ -424,14 +426,13 @@ class Shaper:
                     return Bound.WHEEL_ACCEL
             if rates_inside:
                 continue
+            # vertices of v, omega and both wheels' rims (v -+ omega W/2), where they lie inside the piece
             times = [0.0, piece]
-            for weight_v, weight_w in ((1.0, 0.0), (0.0, 1.0), (1.0, -half_track), (1.0, half_track)):
-                curve = weight_v * jerk + weight_w * turn_jerk
-                if curve != 0.0:
-                    vertex = -(weight_v * a + weight_w * alpha) / curve
-                    if 0.0 < vertex < piece:
-                        times.append(vertex)
-            fastest = sharpest = 0.0
+            for rate, change in ((a, jerk), (alpha, turn_jerk), (a - alpha * half_track, jerk - turn_jerk * half_track),
+                                 (a + alpha * half_track, jerk + turn_jerk * half_track)):
+                if change != 0.0 and 0.0 < -rate / change < piece:
+                    times.append(-rate / change)
+            fastest = sharpest = 0.0  # comparisons, not abs() and max() calls: this is the re-plan's hot loop
             for tau in times:
                 v_at = v + a * tau + 0.5 * jerk * tau * tau
                 w_at = w + alpha * tau + 0.5 * turn_jerk * tau * tau
@@ -439,11 +440,16 @@ class Shaper:
                     return Bound.SPEED
                 if -v_at > reverse:
                     return Bound.REVERSE_SPEED
-                if abs(w_at) > turn:
+                v_size = v_at if v_at >= 0.0 else -v_at
+                w_size = w_at if w_at >= 0.0 else -w_at
+                if w_size > turn:
                     return Bound.TURN_RATE
-                if abs(v_at) + abs(w_at) * half_track > rim_speed:
+                if v_size + w_size * half_track > rim_speed:
                     return Bound.WHEEL_RATE
-                fastest, sharpest = max(fastest, abs(v_at)), max(sharpest, abs(w_at))
+                if v_size > fastest:
+                    fastest = v_size
+                if w_size > sharpest:
+                    sharpest = w_size
             if fastest * sharpest > sideways:
                 if _peak_product((v, a, 0.5 * jerk), (w, alpha, 0.5 * turn_jerk), piece) > sideways:
                     return Bound.SIDEWAYS_ACCEL
