@@ -9,6 +9,9 @@ from __future__ import annotations
 import dataclasses
 import json
 import math
+import os
+import shutil
+import tempfile
 import textwrap
 from dataclasses import dataclass
 from pathlib import Path
@@ -20,7 +23,8 @@ from console.bench import analysis
 from console.bench.analysis import FopdtFit, StepMetrics, SuggestedLimits
 from console.bench.polarity import PolarityReport, check_polarity
 from console.bench.recording import Recording, Segment
-from console.files import atomic_output, check_output, make_folders, remove_folders, write_atomic
+from console.errors import OutputError
+from console.files import atomic_output, check_output, make_folders, reason, remove_folders, write_atomic
 from console.record import sidecar_path
 
 DEFAULT_SPEED_ERROR_SHARE = 0.05    # stated tracking error for the suggested limits: 5 % of the top speed
@@ -473,18 +477,34 @@ def markdown(report: Report) -> str:
 
 
 def write_report(rec: Recording, report: Report, out: Path) -> list[Path]:
-    """summary.md, report.json and the figures into `out` (each written whole or not at all, console/files.py).
+    """summary.md, report.json and the figures into `out`, all of them or none.
 
-    A folder this call created is removed again when nothing could be written into it."""
+    Everything is written first into a hidden folder inside `out` (each file whole, console/files.py); only when all
+    are there are they renamed into place, so a failure on the way (a full disk, a signal) leaves no new file. A
+    folder this call created is removed again when nothing could be written into it."""
     created = make_folders(out)
+    staging: Path | None = None
     try:
         for name in (*FIGURES, "report.json", "summary.md"):
             check_output(out / name)
-        paths = _figures(rec, report, out)
+        try:
+            staging = Path(tempfile.mkdtemp(dir=out, prefix=".report-"))
+        except OSError as error:
+            raise OutputError(str(out), f"cannot be written ({reason(error)})") from None
+        staged = _figures(rec, report, staging)
         for name, text in (("report.json", json.dumps(report.to_json(), indent=2) + "\n"),
                            ("summary.md", markdown(report))):
-            paths.append(write_atomic(out / name, text))
-    except BaseException:
+            staged.append(write_atomic(staging / name, text))
+        paths = []
+        for path in staged:
+            os.replace(path, out / path.name)
+            paths.append(out / path.name)
+    except BaseException as error:
+        if staging is not None:
+            shutil.rmtree(staging, ignore_errors=True)
         remove_folders(created)
+        if isinstance(error, OSError):
+            raise OutputError(str(out), f"cannot be written ({reason(error)})") from None
         raise
+    staging.rmdir()     # empty: everything in it was renamed into place
     return paths

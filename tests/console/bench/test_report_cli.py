@@ -2,11 +2,14 @@
 
 from __future__ import annotations
 
+import os
 import shutil
 from pathlib import Path
+from typing import Any
 
 import pytest
 
+from console import files
 from console.bench.program import builtin
 from console.bench.run import BenchRun
 from console.cli import main
@@ -14,6 +17,7 @@ from console.errors import InputError
 from console.profile import load_profile
 from console.record import COLUMNS
 from console.verbs.calibrate import parse_end_position
+from tests.console.faults import DiskFillsUp
 
 ROOT = Path(__file__).resolve().parents[3]
 WREN = ROOT / "profiles" / "wren.toml"
@@ -137,3 +141,26 @@ def test_in_a_narrow_terminal_the_segments_are_lines_instead_of_a_cut_table(tmp_
     assert f"speed up (speed (m/s)): dead s {speed_up.step.dead_time_s:.3g}," in joined
     assert f"peak jerk {speed_up.peak_jerk:.3g}" in joined
     assert max(len(line) for line in text.splitlines()) <= 60
+
+
+def test_a_disk_that_fills_while_the_report_is_written_leaves_no_new_file(
+        tmp_path: Path, capsys: pytest.CaptureFixture[str], monkeypatch: pytest.MonkeyPatch) -> None:
+    result = BenchRun(load_profile(WREN), builtin("spin"), out_dir=tmp_path).run_to_end()
+    out = tmp_path / "out"
+    out.mkdir()
+    (out / "summary.md").write_text("previous\n")
+    real, opened = os.fdopen, []
+
+    def filling(*args: Any, **kwargs: Any) -> Any:
+        """The first two files written whole, then the disk is full (ENOSPC, IEEE Std 1003.1-2017, write())."""
+        handle = real(*args, **kwargs)
+        opened.append(handle)
+        return DiskFillsUp(handle) if len(opened) > 2 else handle
+
+    monkeypatch.setattr(files.os, "fdopen", filling)
+    assert main(["report", str(result.recording), "-o", str(out)]) == 6
+    assert len(opened) > 2                                    # files had been written before the disk filled up
+    assert [path.name for path in out.iterdir()] == ["summary.md"]
+    assert (out / "summary.md").read_text() == "previous\n"  # the old report stays as it was
+    err = capsys.readouterr().err
+    assert err.count("\n") == 1 and "No space left" in err
