@@ -20,7 +20,7 @@ from console.bench.run import BenchRun
 from console.bench.tomledit import edit_toml
 from console.bench.umbmark import UmbmarkResult, corrected_values, return_error, square_program, umbmark
 from console.errors import InputError, LinkLost
-from console.files import write_atomic
+from console.files import check_output, write_atomic
 from console.links import is_simulated
 from console.profile import Profile, load_profile
 
@@ -127,6 +127,10 @@ def run(args: argparse.Namespace) -> int:
     except ValueError:
         raise InputError("command line", "--side-m", args.side_m, "long enough to reach the calibration speed and "
                          "stop again with this profile's limits") from None
+    target = profile.path if args.write else _corrected_path(profile)
+    backup = profile.path.with_name(profile.path.name + ".bak")
+    for path in (target, backup) if args.write else (target,):
+        check_output(path)      # before anything moves: an output that cannot be written would lose the runs
     console = Console(stderr=True)
     console.print(CAUTION)
     result = _runs(console, profile, args, on_sim, runs)
@@ -139,7 +143,6 @@ def run(args: argparse.Namespace) -> int:
         f"{result.wheel_diameter_ratio:.5f}")
     changes = corrected_values(profile, result)
     text = edit_toml(profile.path.read_text(encoding="utf-8"), changes)
-    target = profile.path if args.write else _corrected_path(profile)
     staging = target.with_name(f".{target.name}.check.toml")
     write_atomic(staging, text)
     try:
@@ -147,7 +150,6 @@ def run(args: argparse.Namespace) -> int:
     finally:
         staging.unlink(missing_ok=True)
     if args.write:
-        backup = profile.path.with_name(profile.path.name + ".bak")
         shutil.copy2(profile.path, backup)
         console.print(f"calibrate: backup {backup}")
     write_atomic(target, text)

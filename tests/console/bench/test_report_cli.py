@@ -164,3 +164,15 @@ def test_a_disk_that_fills_while_the_report_is_written_leaves_no_new_file(
     assert (out / "summary.md").read_text() == "previous\n"  # the old report stays as it was
     err = capsys.readouterr().err
     assert err.count("\n") == 1 and "No space left" in err
+
+
+def test_calibrate_refuses_an_output_it_could_not_write_before_any_run(tmp_path: Path,
+                                                                      capsys: pytest.CaptureFixture[str]) -> None:
+    real = tmp_path / "wren.toml"
+    shutil.copy(WREN, real)
+    link = tmp_path / "robot.toml"
+    link.symlink_to(real)          # --write would replace the link, not the profile: refused, and nothing moved
+    assert main(["calibrate", str(link), "--write"]) == 6
+    err = capsys.readouterr().err
+    assert err.count("\n") == 1 and "exists and is a symlink" in err and "run 1" not in err
+    assert real.read_text() == WREN.read_text()
