@@ -7,6 +7,7 @@ and only after a typed confirmation, because a bench program drives the motors b
 from __future__ import annotations
 
 import argparse
+import os
 import sys
 import time
 from pathlib import Path
@@ -19,7 +20,7 @@ from console.bench.program import BUILTINS, BoundProgram, resolve_program
 from console.bench.recording import read_recording
 from console.bench.run import STOP_WAIT_S, BenchResult, BenchRun
 from console.core.safety import StopCause
-from console.errors import InputError, LinkLost, RobotFault
+from console.errors import InputError, LinkLost, OutputError, RobotFault
 from console.interrupts import Interrupts
 from console.links import is_simulated
 from console.profile import load_profile
@@ -85,6 +86,10 @@ def run(args: argparse.Namespace) -> int:
     out = Path(args.out)
     if out.exists() and not out.is_dir():
         raise InputError("command line", "--out", args.out, "a folder")
+    # the folder the recording goes into must be possible before the caution asks for the wheels to go up
+    existing = next(path for path in (out, *out.parents) if path.exists())
+    if not existing.is_dir() or not os.access(existing, os.W_OK | os.X_OK):
+        raise OutputError(str(out), f"cannot be created: {existing} is not a folder this user may write into")
     console = Console(stderr=True)
     url = args.link or profile.link.url
     BoundProgram(program, profile.envelope)          # every level checked before anything is asked or opened
