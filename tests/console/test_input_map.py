@@ -252,3 +252,21 @@ def test_input_map_with_a_keyboard_log(tmp_path: Path, capsys: pytest.CaptureFix
     rows = list(csv.DictReader(io.StringIO(out)))
     assert code == 0
     assert [(row["v_mps"], row["enabled"]) for row in rows] == [(f"{0.3 * TOP_V:.10g}", "1"), ("0", "0")]
+
+
+def test_input_list_names_each_device_and_what_it_can_drive(monkeypatch: pytest.MonkeyPatch,
+                                                            capsys: pytest.CaptureFixture[str]) -> None:
+    from console.inputs.device import DeviceInfo
+    from console.verbs import input as verb
+
+    pad = DeviceInfo("/dev/input/event7", "handheld pad (invented)", {"ABS_Y": (0, 255, 10), "ABS_RX": (0, 255, 10)},
+                     ("BTN_TL", "BTN_TR"))
+    keys = DeviceInfo("/dev/input/event3", "bench keyboard", {}, ("KEY_UP", "KEY_DOWN", "KEY_LEFT", "KEY_RIGHT"))
+    monkeypatch.setattr(verb, "list_devices", lambda: [pad, keys])
+    assert main(["input", "list"]) == 0
+    lines = capsys.readouterr().out.splitlines()
+    assert lines[0].startswith("/dev/input/event7  gamepad") and "ABS_Y 0..255" in lines[0]
+    assert lines[1].startswith("/dev/input/event3  keyboard") and "4 buttons/keys" in lines[1]
+    monkeypatch.setattr(verb, "list_devices", lambda: [])
+    assert main(["input", "list"]) == 0
+    assert capsys.readouterr().out.startswith("no input devices readable here")
