@@ -25,7 +25,7 @@ import numpy as np
 
 from console.core.link import LinkStats
 from console.core.safety import KIND_RANK, StopCause
-from console.core.step import Inputs, LoopCore, LoopStats, Snapshot
+from console.core.step import Inputs, LoopCore, LoopStats, Snapshot, SourceStatus
 from console.errors import DiffdeckError, LinkLost
 from shaping.shaper import StopKind
 
@@ -33,6 +33,7 @@ if TYPE_CHECKING:
     from console.links import Link
     from console.profile import Profile
     from console.record import Recorder
+    from console.session import RequestSource
     from console.sim.firmware import SimRobot
     from console.transport import Transport
 
@@ -190,7 +191,7 @@ class ControlLoop:
     def __init__(self, profile: Profile, transport: Transport, clock: Clock, *, sim: SimRobot | None = None,
                  recorder: Recorder | None = None, operator_timeout_s: float | None = None,
                  ui_timeout_s: float | None = None, url: str | None = None,
-                 on_cycle: Callable[[float], None] | None = None,
+                 source: RequestSource | None = None,
                  reopen: Callable[[], Link] | None = None) -> None:
         self.profile = profile
         self.clock = clock
@@ -198,7 +199,8 @@ class ControlLoop:
         self._sim = sim
         self._recorder = recorder
         self._pose_columns = bool(recorder is not None and getattr(recorder, "pose", False))
-        self._on_cycle = on_cycle
+        self._source = source
+        self._source_status: SourceStatus | None = None
         self._reopen = reopen
         self._reopened: Link | str | None = None      # a link opened again (or why not), for the loop thread
         self._reopening = False
@@ -350,8 +352,8 @@ class ControlLoop:
                 if dt > 0.0:
                     self._sim.advance(dt)
                     self._sim_t = t_abs
-            if self._on_cycle is not None:
-                self._on_cycle(t)
+            if self._source is not None:
+                self._source_status = self._source.poll(t, self)
             inputs = self._take_inputs()
             if self._reopened is not None:
                 self._take_reopened(t)
@@ -399,7 +401,7 @@ class ControlLoop:
         seen, self._beats_seen = self._beats_seen, beats
         return Inputs(req, wheels, arm, stop, beats[0] != seen[0], beats[1] != seen[1],
                       self._sim.pose if self._sim is not None else None,
-                      self._recorder.dropped if self._recorder is not None else 0)
+                      self._recorder.dropped if self._recorder is not None else 0, self._source_status)
 
     def _read(self, t: float) -> bytes:
         if self._core.link.port_gone is not None:

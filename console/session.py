@@ -1,5 +1,5 @@
-"""What every verb that moves a robot shares about a running loop: the `LoopHandle` caller surface and one way to
-bring the robot to rest.
+"""What every verb that moves a robot shares about a running loop: the `LoopHandle` caller surface, the
+`RequestSource` that feeds a loop from inside its cycle, and one way to bring the robot to rest.
 
 A handle is the loop on a thread of this process (`console.loop.ControlLoop`) or in a child process
 (`console.loop_process.LoopProcess`); `drive`, `play`, `bench` (with and without its screen) and `calibrate` only use
@@ -18,7 +18,7 @@ from shaping.shaper import StopKind, speed_limits, turn_limits
 
 if TYPE_CHECKING:
     from console.core.link import LinkStats
-    from console.core.step import LoopStats, Snapshot
+    from console.core.step import LoopStats, Snapshot, SourceStatus
     from console.profile import Profile
 
 STOP_MARGIN_S = 1.0
@@ -58,6 +58,21 @@ class LoopHandle(Protocol):
     def start(self, realtime: bool = True) -> None: ...
 
     def close(self) -> None: ...
+
+
+class RequestSource(Protocol):
+    """Where a running loop's requests come from besides its caller: a request trace (`play`), a bench program
+    (`bench`, `calibrate`), an input device (`drive --input`).
+
+    The runner calls `poll` once per cycle, in the loop's own thread and process, before the core step: a trace row
+    or a program sample is in force from the very cycle it is due, and a device read there never waits behind the
+    screen's pipe. The source acts through the caller surface it is given (`request`, `request_wheels`, `arm`,
+    `stop`) and returns what the screens show (kept in every snapshot as `Snapshot.source`). For `LoopProcess` the
+    source is pickled into the child: open devices in the first `poll`, not in `__init__`. The terminal keyboard is
+    no source: the screen calls the handle directly.
+    """
+
+    def poll(self, t_s: float, loop: LoopHandle) -> SourceStatus | None: ...
 
 
 def stop_allowance_s(loop: LoopHandle, kind: StopKind) -> float:

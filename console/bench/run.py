@@ -18,13 +18,14 @@ from typing import Any
 
 from console.bench.program import BoundProgram, Program
 from console.core.safety import SafetyState, StopCause
-from console.core.step import Snapshot
+from console.core.step import Snapshot, SourceStatus
 from console.errors import InputError, LinkLost, OutputError
 from console.files import reason, write_atomic
 from console.links import is_simulated, open_link
 from console.loop import ControlLoop, VirtualClock, WallClock
 from console.profile import Profile
 from console.record import Recorder, sidecar_path
+from console.session import LoopHandle
 from shaping.shaper import StopKind
 
 FORMAT = "diffdeck bench 1"
@@ -110,7 +111,7 @@ class BenchRun:
             raise OutputError(str(self.path), f"cannot be written ({reason(error)})") from None
         clock = VirtualClock() if self.fast else WallClock()
         self.loop = ControlLoop(profile, transport, clock, sim=self.sim, recorder=self.recorder, url=url,
-                                on_cycle=self._on_cycle, ui_timeout_s=ui_timeout_s)
+                                source=self, ui_timeout_s=ui_timeout_s)
         self._phase = Phase.WAITING
         self._t = 0.0
         self._t0: float | None = None      # recording time of program sample 0
@@ -121,6 +122,11 @@ class BenchRun:
         self._started = False
 
     # -- the loop thread's hook -------------------------------------------------------------------------------
+
+    def poll(self, t: float, loop: LoopHandle) -> SourceStatus | None:
+        """The run as the loop's request source (console.session.RequestSource)."""
+        self._on_cycle(t)
+        return None
 
     def _on_cycle(self, t: float) -> None:
         self._t = t

@@ -61,6 +61,15 @@ class LoopStats:
 
 
 @dataclass(frozen=True, slots=True)
+class SourceStatus:
+    """What a request source (console.session.RequestSource) shows the operator; carried in every snapshot so a
+    screen in another process sees it. Sources with more to show subclass it."""
+
+    name: str                       # "trace laps.csv", "program step-v", "gamepad /dev/input/event5"
+    detail: str = ""                # one line for the screen
+
+
+@dataclass(frozen=True, slots=True)
 class Snapshot:
     t_s: float
     state: SafetyState
@@ -78,6 +87,7 @@ class Snapshot:
     events: tuple[Event, ...]
     dropped_rows: int = 0           # recording rows dropped because the writer fell behind
     arm_refusal: str | None = None  # why arming would be refused now (None: arming is possible)
+    source: SourceStatus | None = None   # the request source's status (None: the caller surface only)
 
 
 @dataclass(frozen=True, slots=True)
@@ -92,6 +102,7 @@ class Inputs:
     ui_beat: bool = False
     true_pose: tuple[float, float, float] | None = None   # the simulated robot's pose, when there is one
     dropped_rows: int = 0
+    source: SourceStatus | None = None
 
 
 class LoopCore:
@@ -216,7 +227,7 @@ class LoopCore:
             mark_t, mark_frames = self._rate_mark
             self._rate_hz = (self.link.frames_sent - mark_frames) / (now - mark_t)
             self._rate_mark = (now, self.link.frames_sent)
-        self.snapshot = self._make_snapshot(now, shaped, cmd, inputs.dropped_rows)
+        self.snapshot = self._make_snapshot(now, shaped, cmd, inputs.dropped_rows, inputs.source)
         return data
 
     # -- safety ---------------------------------------------------------------------------------------------------
@@ -367,9 +378,10 @@ class LoopCore:
         self._events.append(Event(now, text, kind))
         self._events_tuple = tuple(self._events)
 
-    def _make_snapshot(self, now: float, shaped: Shaped, cmd: tuple[float, float], dropped: int) -> Snapshot:
+    def _make_snapshot(self, now: float, shaped: Shaped, cmd: tuple[float, float], dropped: int,
+                       source: SourceStatus | None = None) -> Snapshot:
         meas = self._meas
         return Snapshot(now, self.safety.state, self.safety.cause, shaped, cmd[0], cmd[1],
                         None if meas is None else meas[0], None if meas is None else meas[1],
                         self._battery, self._flags, self._pose, self.link.stats(now, self._rate_hz, self.codec),
-                        self.loop_stats, self._events_tuple, dropped, self.arming_refusal())
+                        self.loop_stats, self._events_tuple, dropped, self.arming_refusal(), source)

@@ -19,7 +19,7 @@ import time
 from pathlib import Path
 
 from console.core.safety import SafetyState, StopCause
-from console.core.step import Snapshot
+from console.core.step import Snapshot, SourceStatus
 from console.errors import InputError, LinkLost, LoopFailure, OutputError, RobotFault
 from console.interrupts import Interrupts
 from console.links import is_simulated, open_link
@@ -27,7 +27,7 @@ from console.loop import ControlLoop, VirtualClock, WallClock
 from console.profile import load_profile
 from console.protocol import flag_names
 from console.record import Recorder, default_path, sidecar_path
-from console.session import ESCALATION, bring_to_rest
+from console.session import ESCALATION, LoopHandle, bring_to_rest
 from console.verbs.shape import TIME_EPS_S, Requests, read_requests
 
 NAME = "play"
@@ -67,26 +67,25 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 
 
 class _Player:
-    """Feeds the trace to the loop from inside its cycle (`on_cycle`), so every cycle gets the row in force."""
+    """The trace as the loop's request source: the row in force at each cycle, from the cycle `go` is set."""
 
-    def __init__(self, requests: Requests) -> None:
+    def __init__(self, requests: Requests, name: str) -> None:
         self.requests = requests
-        self.loop: ControlLoop | None = None
         self.go = False
         self.start_s: float | None = None
         self.trace_s = 0.0
+        self._name = f"trace {name}"
 
-    def on_cycle(self, t_s: float) -> None:
-        if self.loop is None:
-            return
+    def poll(self, t_s: float, loop: LoopHandle) -> SourceStatus | None:
         if self.start_s is None:
             if not self.go:
-                return
+                return None
             self.start_s = t_s
         self.trace_s = t_s - self.start_s
         r = self.requests
         i = bisect.bisect_right(r.t_s, self.trace_s + TIME_EPS_S) - 1
-        self.loop.request(*((r.v_mps[i], r.omega_radps[i]) if i >= 0 else (0.0, 0.0)))
+        loop.request(*((r.v_mps[i], r.omega_radps[i]) if i >= 0 else (0.0, 0.0)))
+        return SourceStatus(self._name, f"{min(self.trace_s, r.t_s[-1]):.1f} / {r.t_s[-1]:.1f} s")
 
     @property
     def last_row_passed(self) -> bool:
@@ -172,10 +171,9 @@ def run(args: argparse.Namespace) -> int:
         transport.close()
         raise InputError("command line", "--record", str(record),
                          f"cannot be written ({open_error.strerror})") from None
-    player = _Player(requests)
+    player = _Player(requests, Path(args.requests).name)
     loop = ControlLoop(profile, transport, VirtualClock() if args.fast else WallClock(), sim=sim,
-                       recorder=recorder, url=url, on_cycle=player.on_cycle)
-    player.loop = loop
+                       recorder=recorder, url=url, source=player)
     interrupts = Interrupts()
     session = _Run(loop, args.fast, interrupts)
     error: Exception | None = None
