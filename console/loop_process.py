@@ -45,6 +45,7 @@ if TYPE_CHECKING:
     from multiprocessing.connection import Connection
 
     from console.profile import Profile
+    from console.session import RequestSource
     from console.ui.trace import KeyWireTrace
 
 SNAPSHOT_HZ = 30.0
@@ -73,6 +74,7 @@ class _Options:
     snapshot_hz: float
     trace_wire: bool
     parent_pid: int
+    source: RequestSource | None = None
 
 
 # -- errors across the pipe ----------------------------------------------------------------------------------------
@@ -149,7 +151,7 @@ def _build(profile: Profile, options: _Options) -> tuple[ControlLoop, Any, Any]:
 
     loop = ControlLoop(profile, transport, WallClock(), sim=sim, recorder=recorder,
                        operator_timeout_s=options.operator_timeout_s, ui_timeout_s=options.ui_timeout_s,
-                       url=options.url, reopen=reopen)
+                       url=options.url, reopen=reopen, source=options.source)
     return loop, recorder, trace
 
 
@@ -256,12 +258,13 @@ class LoopProcess:
     child; `snapshot()` returns the newest snapshot received. Build it before the UI starts (start-up errors are
     raised here), call `start()` when the screen is up and `close()` at the end (controlled stop, recording closed).
     `trace`: a KeyWireTrace whose `wire` list receives the child's transport writes when the proxy closes.
+    `source`: a RequestSource, pickled into the child and polled there every cycle (console.session).
     """
 
     def __init__(self, profile: Profile, *, url: str | None = None, record_path: str | Path | None = None,
                  operator_timeout_s: float | None = None, ui_timeout_s: float | None = None,
                  trace: KeyWireTrace | None = None, snapshot_hz: float = SNAPSHOT_HZ,
-                 start_timeout_s: float = START_TIMEOUT_S) -> None:
+                 start_timeout_s: float = START_TIMEOUT_S, source: RequestSource | None = None) -> None:
         self.profile = profile
         self.url = url if url is not None else profile.link.url
         self.record_path = Path(record_path) if record_path is not None else None
@@ -275,7 +278,7 @@ class LoopProcess:
         self._started = False
         self._closed = False
         options = _Options(self.url, None if record_path is None else str(record_path), operator_timeout_s,
-                           ui_timeout_s, snapshot_hz, trace is not None, os.getpid())
+                           ui_timeout_s, snapshot_hz, trace is not None, os.getpid(), source)
         context = multiprocessing.get_context("spawn")
         self._conn, child_conn = context.Pipe(duplex=True)
         self._process = context.Process(target=_child_main, args=(child_conn, profile, options),
