@@ -66,7 +66,7 @@ class SourceStatus:
     screen in another process sees it. Sources with more to show subclass it."""
 
     name: str                       # "trace laps.csv", "program step-v", "gamepad /dev/input/event5"
-    detail: str = ""                # one line for the screen
+    detail: str                     # one line for the screen
 
 
 @dataclass(frozen=True, slots=True)
