@@ -97,19 +97,24 @@ def run(args: argparse.Namespace) -> int:
         names = ", ".join(seg.name for seg in program.segments if seg.bypass)
         console.print(f"[bold yellow]Caution:[/] segments {names} run AROUND the shaper: no acceleration or jerk "
                       "limit, only the wheel-rate limit. The motors see raw steps.")
+    ui_timeout: float | None = None
+    if args.screen:
+        from console.ui.bench_screen import UI_TIMEOUT_S
+        ui_timeout = UI_TIMEOUT_S
+    # the link opens first: a port that cannot be opened is said at once, not after the wheels went up
+    bench = BenchRun(profile, program, out_dir=out, link_url=url, fast=False if args.screen else None,
+                     ui_timeout_s=ui_timeout)
     if not is_simulated(url):
-        _confirm(console, url)
+        try:
+            _confirm(console, url)
+        except BaseException:
+            bench.discard()                  # nothing ran: no empty recording left behind
+            raise
         if program.name == "polarity":
             console.print("Watch the wheels: afterwards you will be asked which wheel turned which way in the "
                           "'left forwards' and 'right forwards' pulses.")
     else:
         console.print(CAUTION)
-    ui_timeout: float | None = None
-    if args.screen:
-        from console.ui.bench_screen import UI_TIMEOUT_S
-        ui_timeout = UI_TIMEOUT_S
-    bench = BenchRun(profile, program, out_dir=out, link_url=url, fast=False if args.screen else None,
-                     ui_timeout_s=ui_timeout)
     console.print(f"bench: {program.name} ({bench.bound.duration_s:g} s) on {profile.name} over {bench.url}"
                   f"{' (virtual clock)' if bench.fast else ''}; recording to {bench.path}")
     if args.screen:
