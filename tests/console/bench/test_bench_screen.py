@@ -9,6 +9,9 @@ from console.bench.recording import read_recording
 from console.bench.run import BenchRun
 from console.core.safety import SafetyState, StopCause
 from console.profile import load_profile
+import pytest
+from textual.widgets import Static
+
 from console.ui.bench_screen import UI_TIMEOUT_S, BenchApp
 from console.ui.widgets import SafetyBanner, TracePlot
 
@@ -60,3 +63,26 @@ async def test_the_stop_key_stops_under_control_and_keeps_the_recording(tmp_path
     result = app.finish()
     assert not result.completed and result.cause is StopCause.OPERATOR
     assert read_recording(result.recording).data["v_mps"][-1] == 0.0
+
+
+@pytest.mark.parametrize(("size", "plot_shown"), [((80, 24), False), ((120, 40), True)])
+async def test_the_screen_fits_its_terminal(tmp_path: Path, size: tuple[int, int], plot_shown: bool) -> None:
+    """The plot is drawn in its own width (it once drew as if the screen were three times wider) or not at all
+    below 30 rows, and the stop keys' line is always on screen."""
+    program = parse_program(SHORT, "test program", "test")
+    run = BenchRun(load_profile(ROOT / "profiles" / "wren.toml"), program, out_dir=tmp_path, fast=False,
+                   ui_timeout_s=UI_TIMEOUT_S)
+    app = BenchApp(run)
+    async with app.run_test(size=size) as pilot:
+        await _until(app, pilot, lambda: run.progress.t_s > 0.3)
+        plot, keys = app.query_one(TracePlot), app.query_one("#bench-keys", Static)
+        assert plot.display is plot_shown
+        if plot_shown:
+            assert plot.region.right <= size[0] and plot.region.height >= 6
+            assert all(len(line) <= plot.size.width for line in plot.text_lines())
+        assert keys.region.height >= 1 and keys.region.bottom <= size[1]
+        assert "space: stop" in str(keys.render())
+        await pilot.press("q")
+        await _until(app, pilot, lambda: app.result is not None)
+        await pilot.press("q")
+    app.finish()
