@@ -16,7 +16,11 @@ from __future__ import annotations
 import argparse
 import bisect
 import time
+from collections.abc import Callable
 from pathlib import Path
+
+from rich.console import Console
+from rich.progress import BarColumn, Progress, TextColumn
 
 from console.core.safety import SafetyState, StopCause
 from console.core.step import Snapshot, SourceStatus
@@ -115,10 +119,11 @@ class _Run:
         self.wait(POLL_S if not self.fast else 1.0 / self.loop.profile.link.rate_hz)
         return self.loop.snapshot()
 
-    def wait_for(self, done, limit_s: float) -> Snapshot | None:
+    def wait_for(self, done, limit_s: float, *, shown: Callable[[Snapshot], None] = lambda s: None) -> Snapshot | None:
         deadline = self.loop.snapshot().t_s + limit_s
         while True:
             snapshot = self.poll()
+            shown(snapshot)
             if done(snapshot):
                 return snapshot
             if snapshot.t_s >= deadline or self.interrupts.count:
@@ -131,6 +136,15 @@ def _say(line: str) -> None:
         print(line, flush=True)
     except OSError:
         pass
+
+
+def _progress_bar() -> Progress:
+    """Trace time elapsed / total and the safety state, on stderr, in a terminal only (piped output stays lines)."""
+    console = Console(stderr=True)
+    return Progress(TextColumn("{task.description}"), BarColumn(),
+                    TextColumn("{task.completed:5.1f} / {task.total:.1f} s"), TextColumn("{task.fields[state]}"),
+                    console=console,
+                    disable=not console.is_terminal, transient=True)
 
 
 def _check_output(path: str | None) -> None:
@@ -200,15 +214,13 @@ def _play(args: argparse.Namespace, session: _Run, player: _Player, url: str, re
     """Cautions, arming, the trace, the final stop. Returns the error to end with (the loop is still running)."""
     loop, interrupts = session.loop, session.interrupts
     timeout = loop.profile.link.telemetry_timeout_s
-    if not args.yes:
+    if not args.yes and not args.fast:           # --fast runs only on the simulated robot: nothing real moves
         _say(CAUTIONS)
         for n in range(COUNTDOWN_S, 0, -1):
             _say(f"arming in {n} s ...")
             end = time.monotonic() + 1.0
             while time.monotonic() < end and not interrupts.count:
                 time.sleep(POLL_S)
-                if args.fast:
-                    loop.run_cycles(1)
             if interrupts.count:
                 _say("play: interrupted before arming; nothing moved")
                 return None
@@ -227,9 +239,16 @@ def _play(args: argparse.Namespace, session: _Run, player: _Player, url: str, re
         return None if interrupts.count else LinkLost(f"link lost: {url}: {reason}; nothing moved")
     _say("play: armed")
     player.go = True
-    ended = session.wait_for(
-        lambda s: s.state is not SafetyState.ARMED or (player.last_row_passed and s.shaped.settled),
-        player.requests.t_s[-1] + SETTLE_LIMIT_S + 1.0)
+    total_s = float(player.requests.t_s[-1])
+    with _progress_bar() as bar:
+        task = bar.add_task("play", total=total_s, state="armed")
+
+        def show(s: Snapshot) -> None:
+            bar.update(task, completed=min(player.trace_s, total_s), state=s.state.value)
+
+        ended = session.wait_for(
+            lambda s: s.state is not SafetyState.ARMED or (player.last_row_passed and s.shaped.settled),
+            total_s + SETTLE_LIMIT_S + 1.0, shown=show)
     snapshot = loop.snapshot()
     if snapshot.state is not SafetyState.ARMED:
         return _finish_unasked_stop(session, snapshot, url, record)

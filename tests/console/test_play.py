@@ -4,9 +4,12 @@ exit codes, Ctrl-C gives a controlled stop and keeps the recording."""
 from __future__ import annotations
 
 import json
+import os
+import pty
 import signal
 import subprocess
 import sys
+import time
 from pathlib import Path
 
 import numpy
@@ -14,6 +17,7 @@ import pytest
 
 from console.cli import main
 from console.record import read_csv, sidecar_path
+from console.verbs.play import COUNTDOWN_S
 
 ROOT = Path(__file__).resolve().parents[2]
 WREN = ROOT / "profiles" / "wren.toml"
@@ -107,3 +111,42 @@ def test_ctrl_c_sigterm_and_sighup_give_a_controlled_stop_and_keep_the_recording
     rows = stopping[1:] & (steps > 0)        # a cycle started over half a period late rounds to no step: skipped
     decel = -numpy.diff(rec["v_mps"])[rows] / steps[rows]
     assert 0.95 <= decel.max() <= 1.0 + 1e-6            # wren's decel_mps2 (1.0): a controlled stop, not a fast one
+
+
+def test_fast_play_on_the_sim_asks_for_no_cautions_and_no_countdown(tmp_path: Path, trace: Path, capsys) -> None:
+    """--fast runs only on the simulated robot: nothing real moves, so the cautions and the countdown are skipped
+    even without --yes (a real-time run on any link keeps them)."""
+    record = tmp_path / "out.csv"
+    started = time.monotonic()
+    assert main(["play", str(WREN), str(trace), "--fast", "--record", str(record)]) == 0
+    out = capsys.readouterr().out
+    assert "arming in" not in out and "stopped (program end)" in out
+    assert time.monotonic() - started < COUNTDOWN_S
+
+
+def test_a_terminal_shows_the_trace_progress_and_the_state(tmp_path: Path) -> None:
+    """In a terminal (a pty here) play shows a progress bar: trace time elapsed / total and the safety state."""
+    short = tmp_path / "short.csv"
+    short.write_text("t_s,v_mps,omega_radps\n0.0,0.3,0.0\n1.0,0.0,0.0\n", encoding="utf-8")
+    controller, terminal = pty.openpty()
+    player = subprocess.Popen([sys.executable, "-m", "console", "play", str(WREN), str(short), "--link", "sim",
+                               "--yes", "--record", str(tmp_path / "out.csv")], cwd=ROOT, stdin=subprocess.DEVNULL,
+                              stdout=subprocess.DEVNULL, stderr=terminal, env={**os.environ, "COLUMNS": "100"})
+    os.close(terminal)
+    shown = b""
+    try:
+        while True:
+            try:
+                chunk = os.read(controller, 4096)
+            except OSError:                       # EIO: the player closed its end
+                break
+            if not chunk:
+                break
+            shown += chunk
+        assert player.wait(30) == 0
+    finally:
+        os.close(controller)
+        if player.poll() is None:
+            player.kill()
+    text = shown.decode("utf-8", "replace")
+    assert "/ 1.0 s" in text and "armed" in text, text[-400:]
