@@ -24,6 +24,7 @@ from console.errors import InputError, LinkLost, OutputError, RobotFault
 from console.interrupts import Interrupts
 from console.links import is_simulated
 from console.profile import load_profile
+from console.prompts import ask, one_of
 from console.session import ESCALATION
 
 NAME = "bench"
@@ -168,11 +169,8 @@ def _ask_observations(console: Console, result: BenchResult) -> None:
         return
     observed = {}
     for channel in ("left", "right"):
-        console.print(f"In the '{channel} forwards' pulse, which wheel turned and which way? Type one of: "
-                      + ", ".join(OBSERVATIONS))
-        answer = " ".join(sys.stdin.readline().lower().split())
-        if answer not in OBSERVATIONS:
-            raise InputError("bench", f"observation ({channel} forwards)", answer or "(none)",
-                             "one of " + ", ".join(OBSERVATIONS) + f"; the recording is kept in {result.recording}")
-        observed[channel] = answer
+        field = f"observation ({channel} forwards)"
+        observed[channel] = ask(console, f"In the '{channel} forwards' pulse, which wheel turned and which way? Type "
+                                         "one of: " + ", ".join(OBSERVATIONS), one_of(OBSERVATIONS, "bench", field),
+                                where=f"bench (the recording is kept in {result.recording})", field=field)
     record_observations(result.bench_sidecar, observed)

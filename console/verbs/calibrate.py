@@ -10,7 +10,6 @@ from __future__ import annotations
 import argparse
 import math
 import shutil
-import sys
 import time
 from pathlib import Path
 
@@ -23,6 +22,7 @@ from console.errors import InputError, LinkLost
 from console.files import check_output, write_atomic
 from console.links import is_simulated
 from console.profile import Profile, load_profile
+from console.prompts import ask, exactly
 
 NAME = "calibrate"
 HELP = "UMBmark odometry calibration: square runs both ways, wheel-diameter ratio and track-width corrections"
@@ -58,23 +58,14 @@ def parse_end_position(text: str) -> tuple[float, float]:
     return x, y
 
 
-def _ask(console: Console, prompt: str) -> str:
-    console.print(prompt)
-    line = sys.stdin.readline()
-    if not line:
-        raise InputError("calibrate", "input", "(end of input)", "an answer on standard input")
-    return line
-
-
 def _run_square(console: Console, profile: Profile, side: float, clockwise: bool, args: argparse.Namespace,
                 on_sim: bool) -> tuple[float, float]:
     program = square_program(profile, side, clockwise)
     name = "clockwise" if clockwise else "counter-clockwise"
     if not on_sim:
-        answer = _ask(console, f"Put the robot on the start mark facing along +x, then type [bold]{CONFIRMATION}"
-                               f"[/] to drive the {name} square:")
-        if answer.strip().lower() != CONFIRMATION:
-            raise InputError("calibrate", "confirmation", answer.strip(), f"type exactly {CONFIRMATION!r}")
+        ask(console, f"Put the robot on the start mark facing along +x, then type [bold]{CONFIRMATION}[/] to drive "
+                     f"the {name} square:", exactly(CONFIRMATION, "calibrate", "confirmation"),
+            where="calibrate", field="confirmation")
     run = BenchRun(profile, program, out_dir=Path(args.out), link_url=args.link)
     if run.fast:
         result = run.run_to_end()
@@ -93,8 +84,9 @@ def _run_square(console: Console, profile: Profile, side: float, clockwise: bool
                        f"recording kept in {result.recording}")
     measured = None
     if not on_sim:
-        measured = parse_end_position(_ask(console, "Measure where the robot's reference point stopped relative to "
-                                                    "the start mark: type 'x y' in m (x forward, y to the left):"))
+        measured = ask(console, "Measure where the robot's reference point stopped relative to the start mark: "
+                                "type 'x y' in m (x forward, y to the left):", parse_end_position,
+                       where="calibrate", field="end position")
     return return_error(result.recording, profile, measured)
 
 
