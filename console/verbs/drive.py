@@ -63,8 +63,9 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
                         help="latched mode: a key (k changes nothing) at least this often, else a controlled stop "
                         "(default 10, allowed 2..120)")
     parser.add_argument("--rate-hz", type=float, metavar="HZ", help="command rate (default: the profile's rate_hz)")
-    parser.add_argument("--record", action="store_true",
-                        help="record the session to recordings/ (CSV + JSON sidecar)")
+    parser.add_argument("--record", action=argparse.BooleanOptionalAction, default=None,
+                        help="record the session to recordings/ (CSV + JSON sidecar); default: on a real link yes "
+                        "(a black box of every session), on the simulated robot no")
 
 
 def _positive(key: str, value: float | None, allowed: str, low: float = 0.0, high: float = math.inf) -> None:
@@ -104,6 +105,11 @@ def profile_for_link(args: argparse.Namespace, profile: Profile) -> Profile:
     return dataclasses.replace(profile, link=link)
 
 
+def records(args: argparse.Namespace, profile: Profile) -> bool:
+    """Whether this session is recorded: as asked, else always on a real link and never on the simulated robot."""
+    return args.record if args.record is not None else not is_simulated(profile.link.url)
+
+
 def run(args: argparse.Namespace) -> int:
     from console.loop_process import LoopProcess  # the loop's own process: the UI cannot make it late
     from console.ui.app import RENDER_HZ, DriveApp  # Textual is imported only when the console really opens
@@ -114,7 +120,7 @@ def run(args: argparse.Namespace) -> int:
     # start-up errors (bad URL, link lost on open, unwritable recording) are raised here, before any screen
     loop = LoopProcess(profile, url=profile.link.url, ui_timeout_s=UI_TIMEOUT_S, trace=trace,
                        operator_timeout_s=settings.keepalive_s,
-                       record_path=default_path(profile) if args.record else None,
+                       record_path=default_path(profile) if records(args, profile) else None,
                        snapshot_hz=RENDER_HZ)    # one snapshot per screen refresh: more would be pickled for nothing
 
     def start_loop() -> None:
