@@ -23,6 +23,7 @@ from console.core.safety import StopCause
 from console.errors import InputError, LinkLost, OutputError, RobotFault
 from console.interrupts import Interrupts
 from console.links import is_simulated
+from console.options import add_link_options, with_link_options
 from console.profile import load_profile
 from console.prompts import ask, one_of
 from console.session import ESCALATION
@@ -42,7 +43,7 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("profile", metavar="PROFILE", help="robot profile (TOML)")
     parser.add_argument("program", metavar="PROGRAM",
                         help="a built-in program (" + ", ".join(BUILTINS) + ") or a program file (TOML)")
-    parser.add_argument("--link", metavar="URL", help="override the profile's link: sim or a pyserial URL")
+    add_link_options(parser)
     parser.add_argument("--out", metavar="DIR", default="recordings", help="folder for the recording (default: "
                         "recordings)")
     parser.add_argument("--screen", action="store_true", help="show the bench screen (progress, safety state, live "
@@ -82,7 +83,7 @@ def _outcome(result: BenchResult, interrupted: int) -> int:
 
 
 def run(args: argparse.Namespace) -> int:
-    profile = load_profile(args.profile)
+    profile = with_link_options(args, load_profile(args.profile), "bench")
     program = resolve_program(args.program)
     out = Path(args.out)
     if out.exists() and not out.is_dir():
@@ -92,7 +93,7 @@ def run(args: argparse.Namespace) -> int:
     if not existing.is_dir() or not os.access(existing, os.W_OK | os.X_OK):
         raise OutputError(str(out), f"cannot be created: {existing} is not a folder this user may write into")
     console = Console(stderr=True)
-    url = args.link or profile.link.url
+    url = profile.link.url
     BoundProgram(program, profile.envelope)          # every level checked before anything is asked or opened
     if program.bypasses:
         names = ", ".join(seg.name for seg in program.segments if seg.bypass)

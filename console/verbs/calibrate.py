@@ -21,6 +21,7 @@ from console.bench.umbmark import UmbmarkResult, corrected_values, return_error,
 from console.errors import InputError, LinkLost
 from console.files import check_output, write_atomic
 from console.links import is_simulated
+from console.options import add_link_options, with_link_options
 from console.profile import Profile, load_profile
 from console.prompts import ask, exactly
 
@@ -39,7 +40,7 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--side-m", type=float, default=3.0, help="side of the square in m (default 3)")
     parser.add_argument("--runs", type=int, help="runs per direction (default: 1 on the simulated robot, 5 on "
                         "hardware, as the procedure recommends)")
-    parser.add_argument("--link", metavar="URL", help="override the profile's link: sim or a pyserial URL")
+    add_link_options(parser)
     parser.add_argument("--out", metavar="DIR", default="recordings", help="folder for the run recordings")
     parser.add_argument("--write", action="store_true",
                         help="replace PROFILE itself with the corrected one (a backup PROFILE.bak is kept)")
@@ -66,7 +67,7 @@ def _run_square(console: Console, profile: Profile, side: float, clockwise: bool
         ask(console, f"Put the robot on the start mark facing along +x, then type [bold]{CONFIRMATION}[/] to drive "
                      f"the {name} square:", exactly(CONFIRMATION, "calibrate", "confirmation"),
             where="calibrate", field="confirmation")
-    run = BenchRun(profile, program, out_dir=Path(args.out), link_url=args.link)
+    run = BenchRun(profile, program, out_dir=Path(args.out), link_url=profile.link.url)
     if run.fast:
         result = run.run_to_end()
     else:
@@ -107,10 +108,10 @@ def _corrected_path(profile: Profile) -> Path:
 
 
 def run(args: argparse.Namespace) -> int:
-    profile = load_profile(args.profile)
+    profile = with_link_options(args, load_profile(args.profile), "calibrate")
     if not 0.0 < args.side_m <= MAX_SIDE_M:
         raise InputError("command line", "--side-m", args.side_m, f"a side in m, > 0 and <= {MAX_SIDE_M:g}")
-    on_sim = is_simulated(args.link or profile.link.url)
+    on_sim = is_simulated(profile.link.url)
     runs = args.runs if args.runs is not None else (1 if on_sim else 5)
     if not 1 <= runs <= 20:
         raise InputError("command line", "--runs", runs, "1 to 20 runs per direction")

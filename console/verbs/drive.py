@@ -22,6 +22,7 @@ from console.core.safety import StopCause
 from console.errors import InputError
 from console.links import is_simulated
 from console.loop import WallClock
+from console.options import add_link_options, with_link_options
 from console.profile import Profile, load_profile
 from console.record import default_path
 from console.session import bring_to_rest
@@ -48,8 +49,7 @@ KEEPALIVE_RANGE_S = (2.0, 120.0)
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("profile", metavar="PROFILE", help="robot profile (TOML)")
-    parser.add_argument("--link", metavar="URL", help="'sim' (built-in simulated robot), a device path or a pyserial "
-                        "URL such as socket://host:port; default: the profile's [link] url")
+    add_link_options(parser)
     parser.add_argument("--mode", choices=[mode.value for mode in DriveMode], default=DriveMode.HOLD.value,
                         help="driving mode at start (switch with m): hold (default) or latched")
     parser.add_argument("--speed-step-mps", type=float, metavar="MPS",
@@ -94,15 +94,11 @@ def settings_from(args: argparse.Namespace, profile: Profile) -> DriveSettings:
 
 def profile_for_link(args: argparse.Namespace, profile: Profile) -> Profile:
     """The profile with the command-line link overrides applied (the file itself is never touched)."""
-    link = profile.link
-    if args.rate_hz is not None:
-        _positive("--rate-hz", args.rate_hz, "10..1000 Hz", low=9.999999, high=1000.0)
-        link = dataclasses.replace(link, rate_hz=args.rate_hz)
-    if args.link is not None:
-        if not args.link.strip():
-            raise InputError("drive", "--link", args.link, "'sim', a device path or a pyserial URL")
-        link = dataclasses.replace(link, url=args.link.strip())
-    return dataclasses.replace(profile, link=link)
+    profile = with_link_options(args, profile, "drive")
+    if args.rate_hz is None:
+        return profile
+    _positive("--rate-hz", args.rate_hz, "10..1000 Hz", low=9.999999, high=1000.0)
+    return dataclasses.replace(profile, link=dataclasses.replace(profile.link, rate_hz=args.rate_hz))
 
 
 def records(args: argparse.Namespace, profile: Profile) -> bool:

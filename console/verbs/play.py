@@ -28,6 +28,7 @@ from console.errors import InputError, LinkLost, LoopFailure, OutputError, Robot
 from console.interrupts import Interrupts
 from console.links import is_simulated, open_link
 from console.loop import ControlLoop, VirtualClock, WallClock
+from console.options import add_link_options, with_link_options
 from console.profile import load_profile
 from console.protocol import flag_names
 from console.record import Recorder, default_path, sidecar_path
@@ -60,9 +61,7 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("profile", metavar="PROFILE", help="robot profile (TOML)")
     parser.add_argument("requests", metavar="REQUESTS.csv",
                         help="request trace, header t_s,v_mps,omega_radps (the same file `shape` reads)")
-    parser.add_argument("--link", metavar="URL",
-                        help='override the profile\'s link url: "sim" (built-in simulated robot), a device path or '
-                             "a pyserial URL")
+    add_link_options(parser)
     parser.add_argument("--record", metavar="OUT.csv",
                         help="recording path (default recordings/<profile>-<UTC time>.csv); a .json sidecar is added")
     parser.add_argument("--fast", action="store_true",
@@ -169,9 +168,9 @@ def _fault_error(snapshot: Snapshot, url: str, record: Path) -> LinkLost | Robot
 
 
 def run(args: argparse.Namespace) -> int:
-    profile = load_profile(args.profile)
+    profile = with_link_options(args, load_profile(args.profile), "play")
     requests = read_requests(args.requests)
-    url = args.link if args.link is not None else profile.link.url
+    url = profile.link.url
     if args.fast and not is_simulated(url):
         raise InputError("command line", "--fast", url,
                          'only with the simulated robot (--link sim): a real robot runs in real time')
