@@ -25,12 +25,10 @@ from console.loop import ControlLoop, VirtualClock
 from console.loop_process import LoopProcess
 from console.profile import Profile
 from console.record import Recorder, sidecar_path
-from console.session import LoopHandle
+from console.session import LoopHandle, bring_to_rest
 from shaping.shaper import StopKind
 
 FORMAT = "diffdeck bench 1"
-STOP_WAIT_S = 30.0
-"""Longest a run closed early waits for its controlled stop to finish."""
 TELEMETRY_WAIT_S = 2.0
 """How long a run waits for the first telemetry before giving up (the robot is not answering)."""
 
@@ -287,18 +285,24 @@ class BenchRun:
         return self._result
 
     def _come_to_rest(self) -> None:
-        """A run closed early still ends with a controlled stop carried out by the loop (not just requested)."""
-        if self.progress.done or self.loop.failure is not None:
+        """A run closed early still ends with a controlled stop carried out by the loop (not just requested), made
+        harsher if it takes longer than it should: the one `bring_to_rest` every verb uses."""
+        if self.progress.done or self.loop.failure is not None or not (self.fast or self._started):
             return
-        self.stop()
+        bring_to_rest(self.loop, StopKind.CONTROLLED, StopCause.OPERATOR, wait=self.wait, clock=self.clock)
+        self.wait(2.0 * self.period_s)               # the source sees the stop and ends its program
+
+    def wait(self, seconds: float) -> None:
+        """Let `seconds` of the run's time pass: loop cycles on the virtual clock, sleep on the wall clock."""
         if self.fast:
-            for _ in range(int(STOP_WAIT_S * self.profile.link.rate_hz)):
-                if not self.step(1):
-                    return
-        elif self._started:
-            deadline = time.monotonic() + STOP_WAIT_S
-            while not self.progress.done and time.monotonic() < deadline and self.loop.failure is None:
-                time.sleep(0.02)
+            assert isinstance(self.loop, ControlLoop)
+            self.loop.run_cycles(max(1, round(seconds / self.period_s)))
+        else:
+            time.sleep(seconds)
+
+    def clock(self) -> float:
+        """The run's time: the loop's own on the virtual clock, the wall's otherwise."""
+        return self.loop.snapshot().t_s if self.fast else time.monotonic()
 
     def _write_sidecar(self, side: Path, progress: BenchProgress, completed: bool, failure: str | None) -> None:
         t0 = progress.program_start_s if progress.program_start_s is not None else 0.0

@@ -18,7 +18,7 @@ from rich.progress import BarColumn, Progress, TextColumn, TimeRemainingColumn
 from console.bench.polarity import OBSERVATIONS, has_pulses, record_observations
 from console.bench.program import BUILTINS, BoundProgram, resolve_program
 from console.bench.recording import read_recording
-from console.bench.run import STOP_WAIT_S, BenchResult, BenchRun
+from console.bench.run import BenchResult, BenchRun
 from console.core.safety import StopCause
 from console.errors import InputError, LinkLost, OutputError, RobotFault
 from console.interrupts import Interrupts
@@ -26,7 +26,8 @@ from console.links import is_simulated
 from console.options import add_link_options, with_link_options
 from console.profile import load_profile
 from console.prompts import ask, one_of
-from console.session import ESCALATION
+from console.session import bring_to_rest
+from shaping.shaper import StopKind
 
 NAME = "bench"
 HELP = "run a bench test program (built-in or TOML) on the robot, wheels off the ground, and record it"
@@ -132,19 +133,12 @@ def run(args: argparse.Namespace) -> int:
             task = bar.add_task(program.name, total=bench.bound.duration_s, segment="")
             if not bench.fast:
                 bench.start()
-            stop_asked_at: float | None = None
-            asked = 0
             while not bench.progress.done:
-                if interrupts.count > asked:
-                    asked = interrupts.count
-                    kind = ESCALATION[min(asked - 1, 2)]
-                    if stop_asked_at is None:
-                        bench.stop(interrupts.cause)
-                        stop_asked_at = time.monotonic()
-                    else:
-                        bench.loop.stop(kind, interrupts.cause)
-                    _say(console, f"bench: {interrupts.name}: {kind.value} stop; the recording is kept")
-                if stop_asked_at is not None and time.monotonic() - stop_asked_at > STOP_WAIT_S:
+                if interrupts.count:
+                    _say(console, f"bench: {interrupts.name}: controlled stop; the recording is kept")
+                    bring_to_rest(bench.loop, StopKind.CONTROLLED, interrupts.cause,
+                                  escalations=lambda: interrupts.count, wait=bench.wait, clock=bench.clock,
+                                  announce=lambda kind: _say(console, f"bench: {kind.value} stop"))
                     break
                 if bench.fast:
                     bench.step(50)
