@@ -75,11 +75,8 @@ def _run_square(console: Console, profile: Profile, side: float, clockwise: bool
         try:
             while not run.progress.done:
                 time.sleep(0.05)
-        except KeyboardInterrupt:
-            run.stop()
-            while not run.progress.done:
-                time.sleep(0.05)
-        result = run.close()
+        finally:
+            result = run.close()          # ctrl+c or a signal: brought to rest (session.bring_to_rest) first
     if not result.completed:
         raise LinkLost(f"calibrate: the {name} run did not complete ({result.failure or result.cause}); "
                        f"recording kept in {result.recording}")
