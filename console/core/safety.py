@@ -27,6 +27,7 @@ class StopCause(enum.Enum):
     DEADMAN = "deadman"
     LINK_LOST = "link lost"
     UI_STALL = "UI stall"
+    INPUT_LOST = "input lost"
     WATCHDOG = "watchdog trip"
     FAULT = "fault"
     ESTOP = "emergency stop"
@@ -94,6 +95,9 @@ CAUSES: dict[StopCause, CauseRule] = {
     StopCause.DEADMAN: CauseRule(StopKind.CONTROLLED, frozenset({SafetyState.ARMED}),
                                  "no operator keep-alive for the operator timeout (latched driving)"),
     StopCause.UI_STALL: CauseRule(StopKind.FAST, _MOVING, "no UI heartbeat for the UI timeout"),
+    StopCause.INPUT_LOST: CauseRule(StopKind.FAST, _ALL,
+                                    "the input device driving (drive --input) went away: unplugged, flat battery, "
+                                    "read error, its FIFO closed"),
     StopCause.LINK_LOST: CauseRule(StopKind.IMMEDIATE, _MOVING,
                                    "the port went away, or no valid telemetry for telemetry_timeout_s"),
     StopCause.WATCHDOG: CauseRule(StopKind.IMMEDIATE, _MOVING, "telemetry answering the release frame has WATCHDOG"),

@@ -41,13 +41,33 @@ def _names() -> tuple[dict[int, str], dict[int, dict[int, str]]]:
     return types, codes
 
 
+class EventDecoder:
+    """input_event records -> Events, across reads that end inside a record; SYN records are left out."""
+
+    def __init__(self) -> None:
+        self._types, self._codes = _names()
+        self._pending = b""
+
+    def feed(self, chunk: bytes) -> list[Event]:
+        pending = self._pending + chunk
+        whole = len(pending) - len(pending) % RECORD.size
+        self._pending = pending[whole:]
+        events = []
+        for seconds, micros, kind, code, value in RECORD.iter_unpack(pending[:whole]):
+            if kind == EV_SYN:
+                continue
+            type_name = self._types.get(kind, f"EV_{kind}")
+            events.append(Event(seconds + micros * 1e-6, type_name,
+                                self._codes.get(kind, {}).get(code, f"{type_name}_{code}"), value))
+        return events
+
+
 def read_events(fd: int) -> Iterator[Event]:
     """Events from a file descriptor until it ends (device gone, pipe closed); SYN records are left out.
 
     The caller sees the end as the iterator stopping: `OSError` (ENODEV when unplugged) ends it too.
     """
-    types, codes = _names()
-    pending = b""
+    decoder = EventDecoder()
     while True:
         try:
             chunk = os.read(fd, RECORD.size * 64)
@@ -55,15 +75,26 @@ def read_events(fd: int) -> Iterator[Event]:
             return
         if not chunk:
             return
-        pending += chunk
-        whole = len(pending) - len(pending) % RECORD.size
-        for seconds, micros, kind, code, value in RECORD.iter_unpack(pending[:whole]):
-            if kind == EV_SYN:
-                continue
-            type_name = types.get(kind, f"EV_{kind}")
-            yield Event(seconds + micros * 1e-6, type_name, codes.get(kind, {}).get(code, f"{type_name}_{code}"),
-                        value)
-        pending = pending[whole:]
+        yield from decoder.feed(chunk)
+
+
+class DeviceGone(Exception):
+    """The device went away: unplugged (ENODEV), a read error, or the end of a FIFO (its writer closed it)."""
+
+
+def read_available(fd: int, decoder: EventDecoder) -> list[Event]:
+    """Every event a non-blocking descriptor holds now, without waiting; raises DeviceGone at its end."""
+    events: list[Event] = []
+    while True:
+        try:
+            chunk = os.read(fd, RECORD.size * 64)
+        except BlockingIOError:
+            return events
+        except OSError as error:
+            raise DeviceGone(error.strerror or str(error)) from None
+        if not chunk:
+            raise DeviceGone("end of file")
+        events += decoder.feed(chunk)
 
 
 @dataclass(frozen=True, slots=True)
@@ -113,14 +144,17 @@ def list_devices() -> list[DeviceInfo]:
     return found
 
 
-def open_source(path: str) -> int:
-    """A file descriptor to read events from: a device, or a FIFO carrying the same records (for rehearsals)."""
+def open_source(path: str, *, nonblocking: bool = False) -> int:
+    """A file descriptor to read events from: a device, or a FIFO carrying the same records (for rehearsals).
+
+    `nonblocking`: for the control loop, which must never wait (nor for a FIFO's writer when opening it).
+    """
     try:
         mode = os.stat(path).st_mode
         if not (stat.S_ISCHR(mode) or stat.S_ISFIFO(mode)):
             raise InputError(path, "device", path, "an input device (/dev/input/eventN) or a FIFO of input_event "
                                                    "records")
-        return os.open(path, os.O_RDONLY | os.O_CLOEXEC)
+        return os.open(path, os.O_RDONLY | os.O_CLOEXEC | (os.O_NONBLOCK if nonblocking else 0))
     except OSError as error:
         raise InputError(path, "device", path, f"cannot be opened ({error.strerror}); see 'diffdeck input list' "
                                                "(a device needs read permission, e.g. the input group)") from None

@@ -144,6 +144,19 @@ class Mapper:
         self.enabled = False
         return self._request(t_s, Stop.LOST)
 
+    def request(self, t_s: float) -> Request:
+        """What the operator asks for now, with no new event (after `require_centre`, say)."""
+        return self._request(t_s, None)
+
+    def positions(self) -> tuple[float, float]:
+        """The speed and turn sticks' shaped positions (-1 .. 1), as the operator holds them."""
+        return self._axes[self.config.speed_axis].position, self._axes[self.config.turn_axis].position
+
+    @property
+    def centring(self) -> bool:
+        """An axis reads zero until it has been centred once."""
+        return any(axis.needs_centre for axis in self._axes.values())
+
     def _request(self, t_s: float, stop: Stop | None) -> Request:
         if not self.enabled or stop is not None:
             return Request(t_s, 0.0, 0.0, self.enabled, stop)
@@ -192,13 +205,26 @@ class KeyboardMapper:
             elif event.code in KEYBOARD_SETTING and pressed:
                 low, high = SPEED_SETTING_RANGE
                 self.setting = round(max(low, min(high, self.setting + KEYBOARD_SETTING[event.code])), 6)
-        if not self._held or stop is not None:
-            return Request(event.t_s, 0.0, 0.0, self.enabled, stop)
-        y = sum(KEYBOARD_DRIVE[key][0] for key in self._held)
-        w = sum(KEYBOARD_DRIVE[key][1] for key in self._held)
-        top = self.top_speed_mps if y >= 0.0 else self.top_reverse_speed_mps
-        return Request(event.t_s, y * self.setting * top, w * self.setting * self.top_turn_rate_radps, True)
+        return self._request(event.t_s, stop)
 
     def lost(self, t_s: float) -> Request:
         self._held.clear()
         return Request(t_s, 0.0, 0.0, False, Stop.LOST)
+
+    def request(self, t_s: float) -> Request:
+        """What the keys held now ask for, with no new event."""
+        return self._request(t_s, None)
+
+    def positions(self) -> tuple[float, float]:
+        """Speed and turn as the held arrows ask for them (-1, 0 or 1 each)."""
+        return (sum(KEYBOARD_DRIVE[key][0] for key in self._held), sum(KEYBOARD_DRIVE[key][1] for key in self._held))
+
+    centring = False
+    """Keys held at arming are forgotten (`require_centre`): nothing waits to be centred."""
+
+    def _request(self, t_s: float, stop: Stop | None) -> Request:
+        if not self._held or stop is not None:
+            return Request(t_s, 0.0, 0.0, self.enabled, stop)
+        y, w = self.positions()
+        top = self.top_speed_mps if y >= 0.0 else self.top_reverse_speed_mps
+        return Request(t_s, y * self.setting * top, w * self.setting * self.top_turn_rate_radps, True)

@@ -20,6 +20,7 @@ from typing import TYPE_CHECKING
 
 from console.core.safety import StopCause
 from console.errors import InputError
+from console.inputs.source import source_from_option
 from console.links import is_simulated
 from console.loop import WallClock
 from console.options import add_link_options, with_link_options
@@ -66,6 +67,10 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--record", action=argparse.BooleanOptionalAction, default=None,
                         help="record the session to recordings/ (CSV + JSON sidecar); default: on a real link yes "
                         "(a black box of every session), on the simulated robot no")
+    parser.add_argument("--input", default="terminal", metavar="SOURCE",
+                        help="what drives: terminal (the console's keys, default), gamepad (the first one found), "
+                        "gamepad:PATH or keyboard:PATH (a Linux input device, or a FIFO of its records); the "
+                        "terminal's stop keys work whatever drives")
 
 
 def _positive(key: str, value: float | None, allowed: str, low: float = 0.0, high: float = math.inf) -> None:
@@ -112,12 +117,14 @@ def run(args: argparse.Namespace) -> int:
 
     profile = profile_for_link(args, load_profile(args.profile))
     settings = settings_from(args, profile)
+    source = source_from_option(args.input, profile)     # checked (and found) here: one line, exit 2, nothing opens
     trace = KeyWireTrace.from_env()
     # start-up errors (bad URL, link lost on open, unwritable recording) are raised here, before any screen
     loop = LoopProcess(profile, url=profile.link.url, ui_timeout_s=UI_TIMEOUT_S, trace=trace,
                        operator_timeout_s=settings.keepalive_s,
                        record_path=default_path(profile) if records(args, profile) else None,
-                       snapshot_hz=RENDER_HZ)    # one snapshot per screen refresh: more would be pickled for nothing
+                       snapshot_hz=RENDER_HZ,    # one snapshot per screen refresh: more would be pickled for nothing
+                       source=source)
 
     def start_loop() -> None:
         """Once the screen is up: keep the UI process's own pauses short, then start the loop.
