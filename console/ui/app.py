@@ -19,6 +19,7 @@ from textual.screen import Screen
 from console.core.safety import SafetyState, StopCause
 from console.links import is_simulated
 from console.ui.driving import Confirm, DriveInput, DriveMode, DriveSettings
+from console.ui.input_panel import InputPanel
 from console.ui.keys import APP_BINDINGS, SCREEN_BINDINGS
 from console.ui.screens import CautionScreen, HelpScreen
 from console.ui.signals import exit_on_ending_signals
@@ -92,6 +93,7 @@ class DriveScreen(Screen[None]):
         with Horizontal(id="body"):
             with Vertical(id="left"):
                 yield SafetyBanner(id="banner")
+                yield InputPanel(id="input")
                 yield LinkPanel(id="link")
                 yield LimitPanel(id="limits")
                 yield KeyCard(id="keys")
@@ -116,6 +118,7 @@ class DriveScreen(Screen[None]):
             self.query_one(selector).border_title = title
         self.title_bar = self.query_one(TitleBar)
         self.banner = self.query_one(SafetyBanner)
+        self.input_panel = self.query_one(InputPanel)
         self.link_panel = self.query_one(LinkPanel)
         self.limit_panel = self.query_one(LimitPanel)
         self.speed_gauge = self.query_one("#speed", AxisGauge)
@@ -137,6 +140,7 @@ class DriveScreen(Screen[None]):
         )
         self.banner.show(snap.state.value, None if snap.cause is None else snap.cause.value,
                                           self._banner_detail(snap, drive, now_s))
+        self.input_panel.show(snap.source)
         self.link_panel.show(snap, profile.link.rate_hz)
         self.limit_panel.show(snap)
         age = snap.link.telemetry_age_s
@@ -368,6 +372,9 @@ class DriveApp(App[int]):
         snap = self.last_snapshot
         if snap is None or snap.state is not SafetyState.ARMED:
             self._note("not armed: a then enter arms")
+            return
+        if snap.source is not None:     # drive --input: the device alone drives; the stop keys still work
+            self._note(f"{snap.source.name} drives: the terminal's driving keys are off")
             return
         now = self.clock.now()
         before = self.drive.request
