@@ -35,6 +35,12 @@ KEY_UP, KEY_LEFT, KEY_X = 103, 105, 45
 FULL_UP = -32768                             # a pad's "up" is its axis minimum (speed_axis_inverted = true)
 
 
+def send(fd: int, *events: tuple[int, int, int]) -> None:
+    """Records as the kernel writes them: each group closed by a SYN_REPORT."""
+    records = [INPUT_EVENT.pack(1, 0, kind, code, value) for kind, code, value in events]
+    os.write(fd, b"".join(records) + INPUT_EVENT.pack(1, 0, EV_SYN, 0, 0))
+
+
 @dataclass
 class Rig:
     profile: Profile
@@ -43,9 +49,7 @@ class Rig:
     source: DeviceSource
 
     def send(self, *events: tuple[int, int, int]) -> None:
-        """Records as the kernel writes them: each group closed by a SYN_REPORT."""
-        records = [INPUT_EVENT.pack(1, 0, kind, code, value) for kind, code, value in events]
-        os.write(self.writer, b"".join(records) + INPUT_EVENT.pack(1, 0, EV_SYN, 0, 0))
+        send(self.writer, *events)
 
     def cycle(self, n: int = 1) -> None:
         self.loop.run_cycles(n)
@@ -210,3 +214,29 @@ def test_the_speed_setting_buttons_change_what_full_stick_means(rig: Rig) -> Non
     rig.cycle()
     assert rig.status.setting == pytest.approx(0.5)
     assert rig.v_req == pytest.approx(0.5 * rig.profile.envelope.top_speed_mps)
+
+
+def test_in_the_consoles_loop_process_the_pad_drives_and_its_end_is_input_lost(tmp_path: Path) -> None:
+    """As `drive --input` runs it: the source pickled into the loop's child process, which opens the FIFO there."""
+    from console.loop_process import LoopProcess
+    from tests.console.test_loop_process import _armed, _wait
+
+    profile = load_profile(WREN)
+    fifo = tmp_path / "pad"
+    os.mkfifo(fifo)
+    writer = os.open(fifo, os.O_RDWR)
+    proxy = LoopProcess(profile, url="sim", source=DeviceSource("gamepad", str(fifo), profile))
+    try:
+        _armed(proxy)
+        send(writer, (EV_KEY, BTN_TL, 1), (EV_ABS, ABS_Y, FULL_UP))
+        top = 0.3 * profile.envelope.top_speed_mps
+        assert _wait(lambda: proxy.snapshot().shaped.v_req_mps == pytest.approx(top))
+        assert _wait(lambda: getattr(proxy.snapshot().source, "held", False) is True)
+        os.close(writer)
+        writer = -1
+        assert _wait(lambda: proxy.snapshot().cause is StopCause.INPUT_LOST)
+        assert proxy.snapshot().shaped.v_req_mps == 0.0
+    finally:
+        proxy.close()
+        if writer >= 0:
+            os.close(writer)
