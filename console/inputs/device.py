@@ -82,10 +82,15 @@ class DeviceGone(Exception):
     """The device went away: unplugged (ENODEV), a read error, or the end of a FIFO (its writer closed it)."""
 
 
+READS_PER_CALL = 16
+"""At most this many reads (1024 records) per call: a device (or a FIFO's writer) flooding events cannot hold the
+control loop's cycle; the rest waits for the next cycle."""
+
+
 def read_available(fd: int, decoder: EventDecoder) -> list[Event]:
-    """Every event a non-blocking descriptor holds now, without waiting; raises DeviceGone at its end."""
+    """The events a non-blocking descriptor holds now, without waiting; raises DeviceGone at its end."""
     events: list[Event] = []
-    while True:
+    for _ in range(READS_PER_CALL):
         try:
             chunk = os.read(fd, RECORD.size * 64)
         except BlockingIOError:
@@ -95,6 +100,7 @@ def read_available(fd: int, decoder: EventDecoder) -> list[Event]:
         if not chunk:
             raise DeviceGone("end of file")
         events += decoder.feed(chunk)
+    return events
 
 
 @dataclass(frozen=True, slots=True)

@@ -186,6 +186,8 @@ class DriveScreen(Screen[None]):
             return f"{_wheels_word(snap)} · {arming}"
         if state is SafetyState.STOPPING:
             return "ramping down · x: faster"
+        if snap.source is not None:     # drive --input: what the device's holder must do, not the terminal's keys
+            return snap.source.detail
         hold = drive.hold_left_s(now_s)
         if drive.mode is DriveMode.HOLD:
             return "HOLD: keep a key down" if hold is None else f"HOLD: lapses in {hold:.1f} s"

@@ -19,7 +19,7 @@ from console.ui.driving import DriveSettings
 from console.ui.input_panel import InputPanel, stick_bar
 from console.ui.widgets import EventLog
 from tests.console.ui.conftest import PROFILES, UI_TIMEOUT_S, Rig, make_rig
-from tests.console.ui.test_drive_app import SIZE, arm
+from tests.console.ui.test_drive_app import SIZE, arm, banner_text
 
 SPEED_MPS = 0.2
 
@@ -35,7 +35,8 @@ class FakePad:
     def poll(self, t_s: float, loop: LoopHandle) -> InputStatus:
         armed = loop.snapshot().state is SafetyState.ARMED
         loop.request(SPEED_MPS * self.stick if armed and self.held else 0.0, 0.0)
-        return InputStatus("gamepad /dev/input/event7", "", "gamepad", "BTN_TL", self.held, self.stick, 0.0, 0.3,
+        detail = "held: driving" if self.held else "released: hold BTN_TL to drive"
+        return InputStatus("gamepad /dev/input/event7", detail, "gamepad", "BTN_TL", self.held, self.stick, 0.0, 0.3,
                            False, self.lost)
 
 
@@ -66,6 +67,7 @@ async def test_the_panel_shows_enable_sticks_and_setting_and_the_terminal_keys_d
         text = panel_text(rig)
         assert "gamepad /dev/input/event7" in text and "RELEASED" in text and "hold BTN_TL" in text
         assert "30% of top speed" in text
+        assert "hold BTN_TL to drive" in banner_text(rig.app)   # not the terminal's "keep a key down"
         await pilot.press("up", "up", "8")                  # the terminal's driving keys: nothing
         rig.advance(0.2)
         assert rig.snap.shaped.v_req_mps == 0.0 and rig.app.drive.request == (0.0, 0.0)
