@@ -130,7 +130,7 @@ class DeviceSource:
 
     def _status(self) -> InputStatus:
         mapper = self.mapper
-        speed, turn = mapper.positions()
+        speed, turn = mapper.positions() if self._lost is None else (0.0, 0.0)   # a lost device's are unknown
         if self._lost is not None:
             detail = f"input lost ({self._lost}): restart the console with the device back"
         elif mapper.enabled:

@@ -64,5 +64,5 @@ class InputPanel(Panel):
             text.append(f"{label:<{LABEL_W}}", "dim")
             text.append(stick_bar(position, bar_w) + f" {signed(position)}\n")
         text.append(f"{'setting':<{LABEL_W}}", "dim")
-        text.append(f"{setting:.0%} of top speed and turn rate")
+        text.append(f"{setting:.0%} of top speed / turn rate")
         return text
