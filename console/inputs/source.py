@@ -39,6 +39,7 @@ if TYPE_CHECKING:
     from console.session import LoopHandle
 
 TERMINAL = "terminal"
+SHOWN_CODES = 8        # codes a refusal lists of what the device has (a keyboard has over a hundred)
 ALLOWED = "terminal (the console's keys), gamepad (the first one found), gamepad:PATH or keyboard:PATH"
 
 
@@ -190,6 +191,8 @@ def _checked_device(kind: str, path: str, profile: Profile) -> dict[str, tuple[i
                             ("fast_stop_button", info.buttons, "a button")):
         code = getattr(config, key)
         if code not in have:
-            raise InputError(str(profile.path), f"input.{key}", code, f"{what} that {info.name} ({path}) has "
-                                                                      "(see 'diffdeck input watch')")
+            names = list(have)
+            shown = ", ".join(names[:SHOWN_CODES]) + (", ..." if len(names) > SHOWN_CODES else "")
+            raise InputError(str(profile.path), f"input.{key}", code, f"{what} that {info.name} ({path}) has: "
+                                                                      f"{shown or 'none'} (see 'diffdeck input watch')")
     return info.axes

@@ -240,3 +240,15 @@ def test_in_the_consoles_loop_process_the_pad_drives_and_its_end_is_input_lost(t
         proxy.close()
         if writer >= 0:
             os.close(writer)
+
+
+def test_an_arrow_held_through_arming_counts_only_once_pressed_again(keys: Rig) -> None:
+    keys.send((EV_KEY, KEY_UP, 1))
+    keys.cycle(3)
+    keys.arm()
+    keys.send((EV_KEY, KEY_UP, 2))           # the kernel's auto-repeat of the held key: still nothing
+    keys.cycle(5)
+    assert keys.v_req == 0.0
+    keys.send((EV_KEY, KEY_UP, 0), (EV_KEY, KEY_UP, 1))
+    keys.cycle()
+    assert keys.v_req == pytest.approx(0.3 * keys.profile.envelope.top_speed_mps)
