@@ -375,8 +375,7 @@ class DriveApp(App[int]):
         if snap is None or snap.state is not SafetyState.ARMED:
             self._note("not armed: a then enter arms")
             return
-        if snap.source is not None:     # drive --input: the device alone drives; the stop keys still work
-            self._note(f"{snap.source.name} drives: the terminal's driving keys are off")
+        if snap.source is not None:     # drive --input: the device alone drives (the input panel says so)
             return
         now = self.clock.now()
         before = self.drive.request

@@ -17,7 +17,6 @@ from console.transport import memory_pair
 from console.ui.app import DriveApp
 from console.ui.driving import DriveSettings
 from console.ui.input_panel import InputPanel, stick_bar
-from console.ui.widgets import EventLog
 from tests.console.ui.conftest import PROFILES, UI_TIMEOUT_S, Rig, make_rig
 from tests.console.ui.test_drive_app import SIZE, arm, banner_text
 
@@ -66,13 +65,12 @@ async def test_the_panel_shows_enable_sticks_and_setting_and_the_terminal_keys_d
         assert panel.display
         text = panel_text(rig)
         assert "gamepad /dev/input/event7" in text and "RELEASED" in text and "hold BTN_TL" in text
-        assert "30% of top speed" in text
+        assert "full stick = 30% of top" in text
         assert "hold BTN_TL to drive" in banner_text(rig.app)   # not the terminal's "keep a key down"
         await pilot.press("up", "up", "8")                  # the terminal's driving keys: nothing
         rig.advance(0.2)
         assert rig.snap.shaped.v_req_mps == 0.0 and rig.app.drive.request == (0.0, 0.0)
-        log = "\n".join(rig.app.drive_screen.query_one(EventLog).text_lines())
-        assert "driving keys are off" in log
+        assert "terminal: arm and stop keys only" in panel_text(rig)
         pad.held, pad.stick = True, 1.0
         rig.advance(0.2)
         assert rig.snap.shaped.v_req_mps == SPEED_MPS
@@ -97,3 +95,15 @@ def test_the_stick_bar_puts_the_marker_at_the_ends_and_the_centre() -> None:
     assert stick_bar(-1.0, 9) == "●───┼────"
     assert stick_bar(0.0, 9) == "────●────"
     assert stick_bar(1.0, 9) == "────┼───●"
+    assert stick_bar(0.5, 10) == "────┼─●──"          # an even width: one cell less, the centre its own cell
+
+
+async def test_on_a_short_screen_the_panel_keeps_the_enable_and_the_sticks() -> None:
+    pad = FakePad(held=True, stick=0.5)
+    rig = pad_rig(pad)
+    async with rig.app.run_test(size=(80, 24)) as pilot:
+        await arm(rig, pilot)
+        rig.advance(0.1)
+        await pilot.pause()
+        lines = rig.app.drive_screen.query_one(InputPanel).text_lines()
+        assert lines[0].startswith("ENABLE HELD") and "speed +0.50" in lines[1] and "30%" in lines[1]
