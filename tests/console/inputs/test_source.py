@@ -252,3 +252,37 @@ def test_an_arrow_held_through_arming_counts_only_once_pressed_again(keys: Rig) 
     keys.send((EV_KEY, KEY_UP, 0), (EV_KEY, KEY_UP, 1))
     keys.cycle()
     assert keys.v_req == pytest.approx(0.3 * keys.profile.envelope.top_speed_mps)
+
+
+@pytest.mark.skipif(not os.access("/dev/uinput", os.W_OK), reason="no /dev/uinput here: the FIFO tests stand in")
+def test_a_virtual_gamepad_made_by_the_kernel_drives_and_its_removal_is_input_lost() -> None:
+    """evdev's own virtual device (uinput): a real /dev/input/eventN node, its ranges read through the ioctls."""
+    from evdev import AbsInfo, UInput
+
+    from console.inputs.source import source_from_option
+
+    stick = AbsInfo(value=0, min=-32768, max=32767, fuzz=0, flat=0, resolution=0)
+    pad = UInput({EV_KEY: [BTN_TL, BTN_TR, BTN_WEST, BTN_NORTH], EV_ABS: [(ABS_Y, stick), (ABS_RX, stick)]},
+                 name="diffdeck test pad (virtual)")
+    profile = load_profile(WREN)
+    try:
+        source = source_from_option(f"gamepad:{pad.device.path}", profile)
+        console_end, robot_end = memory_pair()
+        loop = ControlLoop(profile, console_end, VirtualClock(), sim=SimRobot(profile, robot_end), url="sim",
+                           source=source)
+        loop.run_cycles(30)
+        loop.arm()
+        loop.run_cycles(1)
+        pad.write(EV_KEY, BTN_TL, 1)
+        pad.write(EV_ABS, ABS_Y, FULL_UP)
+        pad.syn()
+        loop.run_cycles(1)
+        assert loop.snapshot().shaped.v_req_mps == pytest.approx(0.3 * profile.envelope.top_speed_mps)
+        pad.write(EV_KEY, BTN_TL, 0)
+        pad.syn()
+        loop.run_cycles(1)
+        assert loop.snapshot().shaped.v_req_mps == 0.0
+    finally:
+        pad.close()
+    loop.run_cycles(1)
+    assert loop.snapshot().cause is StopCause.INPUT_LOST
