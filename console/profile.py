@@ -26,6 +26,7 @@ from console.files import read_input
 from console.inputs.mapper import InputConfig
 from console.protocol import SEQ_MODULUS
 from console.templates import MAX_TEMPLATE_LINE
+from console.tomltable import MISSING, TomlTable, short
 from shaping.body import Body
 from shaping.envelope import Envelope, Limits
 from shaping.geometry import Geometry
@@ -190,35 +191,6 @@ SIM_DEFAULTS = SimConfig()
 LINK_DEFAULTS = LinkConfig()
 
 
-class _Missing:
-    def __repr__(self) -> str:
-        return "(missing)"
-
-
-MISSING: Any = _Missing()
-
-
-class _Shown:
-    """A value shown as given (no quotes added), for the one-line message."""
-
-    def __init__(self, text: str) -> None:
-        self.text = text
-
-    def __repr__(self) -> str:
-        return self.text
-
-
-def _short(value: object) -> str:
-    """A value as the message shows it: a table as {a table}, an array as [an array], anything long cut to 60
-    characters."""
-    if isinstance(value, dict):
-        return "{a table}"
-    if isinstance(value, list):
-        return "[an array]"
-    text = repr(value)
-    return text if len(text) <= 60 else text[:57] + "..."
-
-
 def _keys(cls: type) -> frozenset[str]:
     return frozenset(f.name for f in fields(cls))
 
@@ -231,85 +203,9 @@ _KNOWN_KEYS: dict[str, frozenset[str]] = {
 }
 
 
-class _Table:
-    """One TOML table being read: typed getters that raise ProfileError, and a final check for unknown keys."""
-
-    def __init__(self, file: str, name: str, table: object) -> None:
-        if not isinstance(table, dict):
-            raise ProfileError(file, name, table, "a table: write it as a [" + name + "] section")
-        self.file, self.name, self.table = file, name, table
-        self.seen: set[str] = set()
-
-    def error(self, key: str, value: object, allowed: str) -> ProfileError:
-        return ProfileError(self.file, f"{self.name}.{key}", value, allowed)
-
-    def raw(self, key: str, default: object, allowed: str) -> object:
-        self.seen.add(key)
-        if key in self.table:
-            return self.table[key]
-        if default is MISSING:
-            strangers = [other for other in self.table if other not in _KNOWN_KEYS.get(self.name, ())]
-            for other in strangers:     # a misspelt required key is reported as the misspelling, not as missing
-                if difflib.get_close_matches(other, [key], n=1):
-                    raise self.error(other, _Shown(_short(self.table[other])), f"unknown key (did you mean {key}?)")
-            raise self.error(key, MISSING, "required; " + allowed)
-        return default
-
-    def number(self, key: str, unit: str, default: object = MISSING, *, low: float = 0.0, high: float = math.inf,
-               low_inclusive: bool = False) -> float:
-        """A finite int or float (never a bool) in (low, high] or [low, high]; RANGES, when it has the key, bounds
-        it to [low, high] from there."""
-        if f"{self.name}.{key}" in RANGES:
-            low, high = RANGES[f"{self.name}.{key}"]
-            low_inclusive = True
-        if high < math.inf:
-            span = f"from {low:g} to {high:g}" if low_inclusive else f"> {low:g} and <= {high:g}"
-        else:
-            span = f">= {low:g}" if low_inclusive else f"> {low:g}"
-        allowed = f"a number {span} ({unit})"
-        value = self.raw(key, default, allowed)
-        if isinstance(value, bool) or not isinstance(value, int | float):
-            raise self.error(key, value, allowed)
-        number = float(value)
-        if not math.isfinite(number) or number > high or number < low or (number == low and not low_inclusive):
-            raise self.error(key, value, allowed)
-        return number
-
-    def optional(self, key: str, unit: str) -> float | None:
-        """An optional positive number; None when left out."""
-        if key not in self.table:
-            self.seen.add(key)
-            return None
-        return self.number(key, unit + "; optional")
-
-    def integer(self, key: str, default: object = MISSING, *, low: int = 1, high: int | None = None) -> int:
-        allowed = f"a whole number from {low} to {high}" if high is not None else f"a whole number >= {low}"
-        value = self.raw(key, default, allowed)
-        if isinstance(value, bool) or not isinstance(value, int) or value < low or (high is not None and value > high):
-            raise self.error(key, value, allowed)
-        return value
-
-    def boolean(self, key: str, default: bool) -> bool:
-        value = self.raw(key, default, "true or false")
-        if not isinstance(value, bool):
-            raise self.error(key, value, "true or false")
-        return value
-
-    def text(self, key: str, default: object = MISSING, *, choices: tuple[str, ...] = ()) -> str:
-        allowed = "one of " + ", ".join(f'"{c}"' for c in choices) if choices else "a non-empty string"
-        value = self.raw(key, default, allowed)
-        if not isinstance(value, str) or not value.strip() or (choices and value not in choices):
-            raise self.error(key, value, allowed)
-        return value
-
-    def finish(self, *, subtables: tuple[str, ...] = ()) -> None:
-        """Unknown keys are errors: a misspelt limit must never fall back to a default silently."""
-        known = sorted(self.seen | set(subtables))
-        for key in self.table:
-            if key not in known:
-                close = difflib.get_close_matches(key, known, n=1)
-                hint = f"did you mean {close[0]}?" if close else f"[{self.name}] takes {', '.join(known)}"
-                raise self.error(key, _Shown(_short(self.table[key])), f"unknown key ({hint})")
+def _table(file: str, name: str, table: object) -> TomlTable:
+    """One section of a profile: ProfileError for anything wrong in it, RANGES for the bounded keys."""
+    return TomlTable(file, name, table, error=ProfileError, known=_KNOWN_KEYS.get(name, ()), ranges=RANGES)
 
 
 def load_profile(path: str | Path) -> Profile:
@@ -321,7 +217,7 @@ def load_profile(path: str | Path) -> Profile:
         if section not in SECTIONS:
             close = difflib.get_close_matches(section, SECTIONS, n=1)
             hint = f"did you mean [{close[0]}]?" if close else "a profile has " + ", ".join(f"[{s}]" for s in SECTIONS)
-            raise ProfileError(file, f"[{section}]", _Shown(_short(data[section])), f"unknown section ({hint})")
+            raise ProfileError(file, f"[{section}]", short(data[section]), f"unknown section ({hint})")
     robot = _required_table(file, data, "robot")
     name = robot.text("name")
     if len(name) > MAX_NAME or not name.isprintable():
@@ -330,14 +226,14 @@ def load_profile(path: str | Path) -> Profile:
     robot.finish()
     geometry = _geometry(_required_table(file, data, "geometry"))
     limits = _limits(_required_table(file, data, "limits"), geometry)
-    units = _units(_Table(file, "units", data.get("units", {})), limits)
-    sim = _sim(_Table(file, "sim", data.get("sim", {})), limits)
+    units = _units(_table(file, "units", data.get("units", {})), limits)
+    sim = _sim(_table(file, "sim", data.get("sim", {})), limits)
     if sim.wheel_loop == "open" and units.unit is not WheelUnit.DUTY:
         raise ProfileError(file, "sim.wheel_loop", sim.wheel_loop, f'"closed" or "pi" with units.unit = '
                            f'"{units.unit.value}": open loop the firmware takes a duty (units.unit = "duty")')
-    link = _link(_Table(file, "link", data.get("link", {})), sim, _top_command(units, limits))
-    body = _body(_Table(file, "body", data["body"])) if "body" in data else None
-    inputs = _input(_Table(file, "input", data.get("input", {})))
+    link = _link(_table(file, "link", data.get("link", {})), sim, _top_command(units, limits))
+    body = _body(_table(file, "body", data["body"])) if "body" in data else None
+    inputs = _input(_table(file, "input", data.get("input", {})))
     return Profile(path=path, name=name, geometry=geometry, limits=limits, units=units, link=link, sim=sim, data=data,
                    body=body, input=inputs)
 
@@ -353,7 +249,7 @@ def _event_codes(prefixes: tuple[str, ...]) -> tuple[str, ...]:
     return tuple(sorted(name for name in ecodes.ecodes if name.startswith(prefixes)))
 
 
-def _input(table: _Table) -> InputConfig:
+def _input(table: TomlTable) -> InputConfig:
     """The optional [input]: which stick axes and buttons drive, in the kernel's event-code names."""
     defaults = InputConfig()
 
@@ -391,7 +287,7 @@ def _input(table: _Table) -> InputConfig:
     return config
 
 
-def _body(table: _Table) -> Body:
+def _body(table: TomlTable) -> Body:
     """The optional [body]: what the static tip-over and traction limits are worked out from (shaping.body)."""
     body = Body(
         mass_kg=table.optional("mass_kg", "kg, for the record"),
@@ -436,20 +332,20 @@ def _parse(path: Path) -> dict[str, Any]:
         raise ProfileError(file, "TOML syntax", "", reason + "; see https://toml.io") from None
 
 
-def _required_table(file: str, data: dict[str, Any], name: str) -> _Table:
+def _required_table(file: str, data: dict[str, Any], name: str) -> TomlTable:
     if name not in data:
         raise ProfileError(file, name, MISSING, f"required section [{name}]")
-    return _Table(file, name, data[name])
+    return _table(file, name, data[name])
 
 
-def _geometry(table: _Table) -> Geometry:
+def _geometry(table: TomlTable) -> Geometry:
     geometry = Geometry(wheel_radius_m=table.number("wheel_radius_m", "m"),
                         track_width_m=table.number("track_width_m", "m, between the wheel contact centres"))
     table.finish()
     return geometry
 
 
-def _limits(table: _Table, geometry: Geometry) -> Limits:
+def _limits(table: TomlTable, geometry: Geometry) -> Limits:
     wheel_rate = table.number("wheel_rate_radps", "rad/s")
     wheel_speed = wheel_rate * geometry.wheel_radius_m  # the fastest a wheel rim can move
     speed = table.number("speed_mps", "m/s")
@@ -503,7 +399,7 @@ def _limits(table: _Table, geometry: Geometry) -> Limits:
     return limits
 
 
-def _units(table: _Table, limits: Limits) -> WheelUnits:
+def _units(table: TomlTable, limits: Limits) -> WheelUnits:
     names = tuple(unit.value for unit in WheelUnit)
     unit = WheelUnit(table.text("unit", WheelUnit.RADPS.value, choices=names))
     ticks = 0.0
@@ -538,7 +434,7 @@ def _top_command(units: WheelUnits, limits: Limits) -> float:
     return limits.wheel_rate_radps * units.per_radps * max(units.trim_left, units.trim_right)
 
 
-def _check_wire_range(table: _Table, units: WheelUnits, limits: Limits) -> None:
+def _check_wire_range(table: TomlTable, units: WheelUnits, limits: Limits) -> None:
     """The fastest wheel command, in the firmware unit and trimmed, must fit the wire (PROTOCOL.md section 10).
 
     Named after the unit's own setting: ticks_per_rev for ticks/s, gear_ratio for rpm (the only setting that
@@ -558,7 +454,7 @@ def _check_wire_range(table: _Table, units: WheelUnits, limits: Limits) -> None:
     raise table.error(key, setting, allowed)
 
 
-def _sim(table: _Table, limits: Limits) -> SimConfig:
+def _sim(table: TomlTable, limits: Limits) -> SimConfig:
     low, high = SIM_SCALE_RANGE
     sim = SimConfig(
         motor_time_constant_s=table.number("motor_time_constant_s", "s", SIM_DEFAULTS.motor_time_constant_s, high=5.0),
@@ -625,7 +521,7 @@ def link_url_problem(url: str) -> str | None:
     return None
 
 
-def _link(table: _Table, sim: SimConfig, top_command: float) -> LinkConfig:
+def _link(table: TomlTable, sim: SimConfig, top_command: float) -> LinkConfig:
     url = table.text("url", LINK_DEFAULTS.url)
     problem = link_url_problem(url)
     if problem is not None:
@@ -645,7 +541,7 @@ def _link(table: _Table, sim: SimConfig, top_command: float) -> LinkConfig:
                           " s), or the link counts as lost between telemetry lines")
     template = None
     if protocol == "template":
-        template = _template(_Table(table.file, "link.template", table.raw("template", MISSING,
+        template = _template(_table(table.file, "link.template", table.raw("template", MISSING,
                                                                             'a [link.template] section')),
                              top_command)
     elif "template" in table.table:
@@ -655,7 +551,7 @@ def _link(table: _Table, sim: SimConfig, top_command: float) -> LinkConfig:
                       telemetry_timeout_s=timeout, template=template)
 
 
-def _template(table: _Table, top_command: float) -> TemplateConfig:
+def _template(table: TomlTable, top_command: float) -> TemplateConfig:
     template = TemplateConfig(
         command_format=_line_format(table, "command_format", COMMAND_FIELDS, {"left", "right"}, top_command),
         stop_format=_line_format(table, "stop_format", STOP_FIELDS, set(), top_command),
@@ -665,7 +561,7 @@ def _template(table: _Table, top_command: float) -> TemplateConfig:
     return template
 
 
-def _line_format(table: _Table, key: str, allowed_fields: frozenset[str], required: set[str],
+def _line_format(table: TomlTable, key: str, allowed_fields: frozenset[str], required: set[str],
                  top_command: float) -> str:
     """A str.format line of plain number fields from the allowed ones, one line that fits the robot's line length
     whatever the values (checked with the fastest command either way and the last sequence number)."""
@@ -706,7 +602,7 @@ def _line_format(table: _Table, key: str, allowed_fields: frozenset[str], requir
     return fmt
 
 
-def _telemetry_regex(table: _Table) -> str:
+def _telemetry_regex(table: TomlTable) -> str:
     allowed = ", ".join(sorted(TELEMETRY_GROUPS))
     pattern = table.text("telemetry_regex")
     try:

@@ -19,6 +19,7 @@ import numpy as np
 
 from console.errors import InputError
 from console.files import read_input
+from console.tomltable import MISSING, TomlTable
 from shaping.envelope import Envelope
 
 
@@ -127,106 +128,66 @@ MAX_DURATION_S = 4 * 3600.0
 MAX_PROGRAM_BYTES = 1 << 20  # a program is a few kB
 
 
-class _Reader:
-    """Typed access to one TOML table, raising ProgramError with the dotted key."""
+LEVEL_ALLOWED = 'a number in the axis unit, or a percentage of the envelope as a string such as "40%"'
 
-    def __init__(self, where: str, prefix: str, table: dict[str, Any]) -> None:
-        self.where, self.prefix, self.table = where, prefix, table
 
-    def error(self, key: str, value: object, allowed: str) -> ProgramError:
-        return ProgramError(self.where, f"{self.prefix}{key}", value, allowed)
-
-    def number(self, key: str, default: float | None = None, *, low: float = 0.0, high: float = math.inf,
-               low_inclusive: bool = False) -> float:
-        value = self.table.get(key, default)
-        allowed = f"a number {'>=' if low_inclusive else '>'} {low:g}" + (
-            f" and <= {high:g}" if high < math.inf else "")
-        if value is None:
-            raise self.error(key, "(missing)", allowed)
-        if isinstance(value, bool) or not isinstance(value, int | float) or not math.isfinite(value):
-            raise self.error(key, value, allowed)
-        if value < low or (value == low and not low_inclusive) or value > high:
-            raise self.error(key, value, allowed)
-        return float(value)
-
-    def level(self, key: str, default: Level | None = None) -> Level:
-        value = self.table.get(key)
-        allowed = 'a number in the axis unit, or a percentage of the envelope as a string such as "40%"'
-        if value is None:
-            if default is None:
-                raise self.error(key, "(missing)", allowed)
-            return default
-        if isinstance(value, str):
-            text = value.strip()
-            try:
-                number = float(text[:-1]) if text.endswith("%") else math.nan
-            except ValueError:
-                number = math.nan
-            if not math.isfinite(number) or abs(number) > 100.0:
-                raise self.error(key, value, allowed + " (at most 100 %)")
-            return Level(number, percent=True)
-        if isinstance(value, bool) or not isinstance(value, int | float) or not math.isfinite(value):
-            raise self.error(key, value, allowed)
-        return Level(float(value))
-
-    def choice(self, key: str, choices: tuple[str, ...], default: str | None = None) -> str:
-        value = self.table.get(key, default)
-        if value not in choices:
-            raise self.error(key, "(missing)" if value is None else value, "one of " + ", ".join(choices))
-        return str(value)
-
-    def text(self, key: str, default: str) -> str:
-        value = self.table.get(key, default)
-        if not isinstance(value, str):
-            raise self.error(key, value, "a string")
+def _level(table: TomlTable, key: str, default: Level | None = None) -> Level:
+    """A level: a number in the axis unit, or "NN%" of the envelope (at most 100 %)."""
+    value = table.raw(key, MISSING if default is None else default, LEVEL_ALLOWED)
+    if isinstance(value, Level):
         return value
+    if isinstance(value, str):
+        text = value.strip()
+        try:
+            number = float(text[:-1]) if text.endswith("%") else math.nan
+        except ValueError:
+            number = math.nan
+        if not math.isfinite(number) or abs(number) > 100.0:
+            raise table.error(key, value, LEVEL_ALLOWED + " (at most 100 %)")
+        return Level(number, percent=True)
+    if isinstance(value, bool) or not isinstance(value, int | float) or not math.isfinite(value):
+        raise table.error(key, value, LEVEL_ALLOWED)
+    return Level(float(value))
 
-    def flag(self, key: str) -> bool:
-        value = self.table.get(key, False)
-        if not isinstance(value, bool):
-            raise self.error(key, value, "true or false")
-        return value
 
-    def only(self, allowed: frozenset[str]) -> None:
-        for key in self.table:
-            if key not in allowed:
-                raise self.error(key, self.table[key], "a known key: " + ", ".join(sorted(allowed)))
+def _table(where: str, name: str, table: object, known: frozenset[str], written_as: str) -> TomlTable:
+    return TomlTable(where, name, table, error=ProgramError, known=known, written_as=written_as)
 
 
-def _segment(where: str, index: int, table: object) -> Segment:
-    reader = _Reader(where, f"segment[{index}].", table if isinstance(table, dict) else {})
-    if not isinstance(table, dict):
-        raise ProgramError(where, f"segment[{index}]", table, "a table ([[segment]])")
-    kind = Kind(reader.choice("kind", tuple(k.value for k in Kind)))
-    axis = Axis(reader.choice("axis", tuple(a.value for a in Axis), Axis.SPEED.value))
-    reader.only(COMMON_KEYS | SEGMENT_KEYS[kind])
-    duration = reader.number("duration_s", high=MAX_DURATION_S)
+def _segment(where: str, index: int, data: object) -> Segment:
+    table = _table(where, f"segment[{index}]", data, COMMON_KEYS | frozenset().union(*SEGMENT_KEYS.values()),
+                   "a [[segment]] table")
+    kind = Kind(table.text("kind", choices=tuple(k.value for k in Kind)))
+    axis = Axis(table.text("axis", Axis.SPEED.value, choices=tuple(a.value for a in Axis)))
+    duration = table.number("duration_s", high=MAX_DURATION_S)
     fields: dict[str, Any] = {}
     if kind is Kind.HOLD:
-        fields["start"] = fields["end"] = reader.level("value", ZERO)
+        fields["start"] = fields["end"] = _level(table, "value", ZERO)
     elif kind in (Kind.STEP, Kind.RAMP):
-        fields["start"], fields["end"] = reader.level("from", ZERO), reader.level("to", ZERO)
+        fields["start"], fields["end"] = _level(table, "from", ZERO), _level(table, "to", ZERO)
         if kind is Kind.STEP:
-            fields["lead_s"] = reader.number("lead_s", 0.0, high=duration, low_inclusive=True)
+            fields["lead_s"] = table.number("lead_s", default=0.0, high=duration, low_inclusive=True)
             if fields["lead_s"] >= duration:
-                raise reader.error("lead_s", fields["lead_s"], f"less than duration_s = {duration:g}")
+                raise table.error("lead_s", fields["lead_s"], f"less than duration_s = {duration:g}")
     else:
-        fields["start"] = fields["end"] = reader.level("offset", ZERO)
-        fields["amplitude"] = reader.level("amplitude")
+        fields["start"] = fields["end"] = _level(table, "offset", ZERO)
+        fields["amplitude"] = _level(table, "amplitude")
         if kind is Kind.CHIRP:
-            fields["f0_hz"] = reader.number("f0_hz", high=1000.0)
-            fields["f1_hz"] = reader.number("f1_hz", high=1000.0)
-            fields["method"] = reader.choice("method", CHIRP_METHODS, "linear")
+            fields["f0_hz"] = table.number("f0_hz", high=1000.0)
+            fields["f1_hz"] = table.number("f1_hz", high=1000.0)
+            fields["method"] = table.text("method", "linear", choices=CHIRP_METHODS)
         else:
-            fields["period_s"] = reader.number("period_s", high=duration)
-    partner = table.get("with", {})
-    if not isinstance(partner, dict) or set(partner) - {axis.partner.value}:
-        raise reader.error("with", partner, f"a table with only the key {axis.partner.value!r} "
-                                            f"(the constant on the other axis)")
-    fields["partner"] = _Reader(where, f"segment[{index}].with.", partner).level(axis.partner.value, ZERO)
-    name = reader.text("name", f"{index} {kind.value} {axis.value}")
-    return Segment(index=index, name=name, kind=kind, axis=axis, duration_s=duration,
-                   bypass=reader.flag("bypass_shaper"), **fields)
+            fields["period_s"] = table.number("period_s", high=duration)
+    partner_key = axis.partner.value
+    partner = _table(where, f"segment[{index}].with", table.raw("with", {}, f"a table {{ {partner_key} = ... }}"),
+                     frozenset({partner_key}), f"a table with only the key {partner_key!r} (the constant on the "
+                     "other axis)")
+    fields["partner"] = _level(partner, partner_key, ZERO)
+    partner.finish()
+    name = table.text("name", f"{index} {kind.value} {axis.value}", empty=True)
+    bypass = table.boolean("bypass_shaper", False)
+    table.finish()                    # a key of another kind (or a typo) is an error, with the closest name
+    return Segment(index=index, name=name, kind=kind, axis=axis, duration_s=duration, bypass=bypass, **fields)
 
 
 def parse_program(data: dict[str, Any], where: str, source: str) -> Program:
@@ -234,11 +195,7 @@ def parse_program(data: dict[str, Any], where: str, source: str) -> Program:
     for key in data:
         if key not in ("program", "segment"):
             raise ProgramError(where, key, data[key], "only the tables [program] and [[segment]]")
-    header = data.get("program", {})
-    if not isinstance(header, dict):
-        raise ProgramError(where, "program", header, "a table")
-    reader = _Reader(where, "program.", header)
-    reader.only(PROGRAM_KEYS)
+    header = _table(where, "program", data.get("program", {}), PROGRAM_KEYS, "a [program] table")
     segments_data = data.get("segment")
     if not isinstance(segments_data, list) or not segments_data:
         raise ProgramError(where, "segment", segments_data if segments_data is not None else "(missing)",
@@ -247,8 +204,10 @@ def parse_program(data: dict[str, Any], where: str, source: str) -> Program:
     total = sum(segment.duration_s for segment in segments)
     if total > MAX_DURATION_S:
         raise ProgramError(where, "segment[*].duration_s", f"{total:g} s in all", f"at most {MAX_DURATION_S:g} s")
-    name = reader.text("name", Path(where).stem)
-    return Program(name=name, description=reader.text("description", ""), source=source, segments=segments)
+    name = header.text("name", Path(where).stem)
+    description = header.text("description", "", empty=True)
+    header.finish()
+    return Program(name=name, description=description, source=source, segments=segments)
 
 
 def load_program(path: str | Path) -> Program:

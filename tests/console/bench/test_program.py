@@ -64,13 +64,13 @@ def test_chirp_sweeps_between_its_frequencies() -> None:
 
 
 BAD = [
-    ("[[segment]]\nkind = 'jump'\nduration_s = 1\n", "segment[0].kind", "one of hold, step"),
+    ("[[segment]]\nkind = 'jump'\nduration_s = 1\n", "segment[0].kind", 'one of "hold", "step"'),
     ("[[segment]]\nkind = 'step'\nto = 0.2\n", "segment[0].duration_s", "a number > 0"),
     ("[[segment]]\nkind = 'step'\nto = '120%'\nduration_s = 1\n", "segment[0].to", "at most 100 %"),
     ("[[segment]]\nkind = 'step'\nto = 'fast'\nduration_s = 1\n", "segment[0].to", "percentage"),
     ("[[segment]]\nkind = 'hold'\nvalue = 0.1\nduration_s = 1\ncolour = 'red'\n", "segment[0].colour", "known key"),
-    ("[[segment]]\nkind = 'step'\nto = 0.2\nduration_s = 1\nlead_s = 2\n", "segment[0].lead_s", "<= 1"),
-    ("[[segment]]\nkind = 'step'\nto = 0.2\nduration_s = 1\nwith = { left = 1 }\n", "segment[0].with", "'turn'"),
+    ("[[segment]]\nkind = 'step'\nto = 0.2\nduration_s = 1\nlead_s = 2\n", "segment[0].lead_s", "from 0 to 1"),
+    ("[[segment]]\nkind = 'step'\nto = 0.2\nduration_s = 1\nwith = { left = 1 }\n", "segment[0].with.left", "takes turn"),
     ("[[segment]]\nkind = 'chirp'\namplitude = 0.1\nf0_hz = 1\nduration_s = 5\n", "segment[0].f1_hz", "a number"),
     ("[program]\nname = 'x'\n", "segment", "one or more [[segment]]"),
     ("[[segment]\n", "syntax", "valid TOML"),
