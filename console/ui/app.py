@@ -21,7 +21,7 @@ from console.links import is_simulated
 from console.ui.driving import Confirm, DriveInput, DriveMode, DriveSettings
 from console.ui.input_panel import InputPanel
 from console.ui.keys import APP_BINDINGS, SCREEN_BINDINGS
-from console.ui.screens import CautionScreen, HelpScreen
+from console.ui.screens import CautionScreen, HelpScreen, Overlay
 from console.ui.signals import exit_on_ending_signals
 from console.ui.trace import KeyWireTrace
 from console.ui.widgets import (
@@ -138,8 +138,7 @@ class DriveScreen(Screen[None]):
             profile.name, snap.link.url, drive.mode.value,
             f"{drive.speed_step_mps:.3g} m/s · {drive.turn_step_radps:.3g} rad/s", snap.t_s,
         )
-        self.banner.show(snap.state.value, None if snap.cause is None else snap.cause.value,
-                                          self._banner_detail(snap, drive, now_s))
+        self.banner.show(*self.banner_words(snap, drive, now_s))
         self.input_panel.show(snap.source)
         self.link_panel.show(snap, profile.link.rate_hz)
         self.limit_panel.show(snap)
@@ -166,6 +165,11 @@ class DriveScreen(Screen[None]):
         self.top_view.add(snap.pose, "true pose (sim)" if is_simulated(snap.link.url) else "dead reckoning",
                           repaint=repaint)
         self.event_log.add_loop(snap.events)
+
+    def banner_words(self, snap: Snapshot, drive: DriveInput, now_s: float) -> tuple[str, str | None, str]:
+        """(state, cause, detail): what the banner says, here and on every overlay's state strip."""
+        return (snap.state.value, None if snap.cause is None else snap.cause.value,
+                self._banner_detail(snap, drive, now_s))
 
     @staticmethod
     def _banner_detail(snap: Snapshot, drive: DriveInput, now_s: float) -> str:
@@ -242,7 +246,7 @@ class DriveApp(App[int]):
     CSS_PATH = "drive.tcss"
     TITLE = "diffdeck drive"
     HORIZONTAL_BREAKPOINTS = [(0, "-narrow"), (100, "-wide")]
-    VERTICAL_BREAKPOINTS = [(0, "-short"), (34, "-tall")]
+    VERTICAL_BREAKPOINTS = [(0, "-short"), (34, "-mid"), (40, "-tall")]
     ENABLE_COMMAND_PALETTE = False
     BINDINGS = APP_BINDINGS
 
@@ -311,6 +315,8 @@ class DriveApp(App[int]):
         self.last_snapshot = snap
         if self.drive_screen.ready:
             self.drive_screen.show(snap, self.drive, now)
+            if isinstance(self.screen, Overlay):
+                self.screen.show_state(*self.drive_screen.banner_words(snap, self.drive, now))
 
     def _note(self, text: str) -> None:
         t_s = self.last_snapshot.t_s if self.last_snapshot is not None else 0.0

@@ -1,7 +1,13 @@
-"""The overlays: the help list (every binding, from console.ui.keys) and the safety cautions before driving a real
-robot."""
+"""The overlays: the help list (every binding, from console.ui.keys), the safety cautions before driving a real
+robot, the typed setpoint and the frame monitor (console.ui.monitor).
+
+Every overlay keeps the robot's safety state and the stop keys in view: a strip with the state (refreshed by the app's
+tick like the main banner) on top, the stop keys' line at the bottom, whatever the overlay shows in between.
+"""
 
 from __future__ import annotations
+
+from typing import TypeVar
 
 from rich.console import Group
 from rich.table import Table
@@ -12,7 +18,11 @@ from textual.containers import Vertical, VerticalScroll
 from textual.screen import ModalScreen
 from textual.widgets import Static
 
-from console.ui.keys import DRIVE_KEYS
+from console.ui.keys import DRIVE_KEYS, STOPPING
+from console.ui.widgets import HintBar, SafetyBanner
+
+ResultType = TypeVar("ResultType")
+STOP_KEYS = tuple((row.shown, row.short) for row in DRIVE_KEYS if row.group == STOPPING.description)
 
 HELP_NOTES = (
     "Hold mode: the request lives only while driving keys keep arriving. Most terminals send no key-release "
@@ -60,7 +70,30 @@ def help_text(deadman_s: float) -> Group:
     return Group(*parts)
 
 
-class HelpScreen(ModalScreen[None]):
+class Overlay(ModalScreen[ResultType]):
+    """A screen above the drive screen that keeps the safety state (top) and the stop keys (bottom) in view.
+
+    Subclasses yield their own content from `body()`; `close_key` names the key that closes the overlay on the stop
+    line. The stop keys themselves are the app's priority bindings: they act here as everywhere.
+    """
+
+    close_key: tuple[str, str] = ("esc", "close")
+
+    def compose(self) -> ComposeResult:
+        yield SafetyBanner(id="overlay-banner")
+        yield from self.body()
+        yield HintBar((*STOP_KEYS, self.close_key), id="overlay-stops")
+
+    def body(self) -> ComposeResult:
+        raise NotImplementedError
+
+    def show_state(self, state: str, cause: str | None, detail: str) -> None:
+        """The app's tick: the same words as the main banner."""
+        if self.is_mounted:
+            self.query_one("#overlay-banner", SafetyBanner).show(state, cause, detail)
+
+
+class HelpScreen(Overlay[None]):
     """Every binding and the driving modes. The app's stop keys stay live above it (priority bindings)."""
 
     BINDINGS = [
@@ -71,7 +104,7 @@ class HelpScreen(ModalScreen[None]):
         super().__init__(id="help")
         self.deadman_s = deadman_s
 
-    def compose(self) -> ComposeResult:
+    def body(self) -> ComposeResult:
         with Vertical(id="help-box") as box:
             box.border_title = "keys and modes"
             box.border_subtitle = "escape closes"
@@ -79,10 +112,11 @@ class HelpScreen(ModalScreen[None]):
                 yield Static(help_text(self.deadman_s), id="help-text")
 
 
-class CautionScreen(ModalScreen[bool]):
+class CautionScreen(Overlay[bool]):
     """Shown before the first drive against a real link; `y` confirms, `q` (an app binding) quits."""
 
     BINDINGS = [Binding("y", "confirm", "I have read this")]
+    close_key = ("y", "read, continue")
 
     def __init__(self, url: str, watchdog_s: float, deadman_s: float) -> None:
         super().__init__(id="cautions")
@@ -90,7 +124,7 @@ class CautionScreen(ModalScreen[bool]):
         self.watchdog_s = watchdog_s
         self.deadman_s = deadman_s
 
-    def compose(self) -> ComposeResult:
+    def body(self) -> ComposeResult:
         body = "\n".join(CAUTIONS).format(url=self.url, watchdog=self.watchdog_s, deadman=self.deadman_s)
         with Vertical(id="caution-box") as box:
             box.border_title = "before you drive"

@@ -49,7 +49,8 @@ def rendered_text(renderable: object) -> str:
 
 
 def banner_text(app: DriveApp) -> str:
-    return "\n".join(app.drive_screen.query_one(SafetyBanner).text_lines())
+    """The banner's words, its wrapped lines joined again."""
+    return " ".join(" ".join(app.drive_screen.query_one(SafetyBanner).text_lines()).split())
 
 
 async def test_arming_takes_the_two_key_sequence(rig: Rig) -> None:
