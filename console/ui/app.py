@@ -8,8 +8,11 @@ Stop keys are App-level priority bindings: they act in every state and above eve
 
 from __future__ import annotations
 
+import asyncio
 import math
+import signal
 from collections.abc import Callable
+from types import FrameType
 from typing import TYPE_CHECKING
 
 from textual.app import App, ComposeResult
@@ -18,6 +21,7 @@ from textual.screen import Screen
 
 from console.core.safety import SafetyState, StopCause
 from console.links import is_simulated
+from console.session import at_rest
 from console.ui.driving import Confirm, DriveInput, DriveMode, DriveSettings
 from console.ui.input_panel import InputPanel
 from console.ui.keys import APP_BINDINGS, SCREEN_BINDINGS
@@ -66,6 +70,24 @@ def _wheels_word(snap: Snapshot) -> str:
     if left is None or right is None or snap.link.lost is not None:
         return "wheel motion unknown"
     return "at rest" if max(abs(left), abs(right)) < AT_REST_RADPS else "wheels still turning"
+
+
+def repaint_on_resume(app: DriveApp) -> Callable[[], None]:
+    """SIGCONT (resumed after a job-control stop): the whole screen is drawn again, as the shell may have written
+    over it. Textual's own SIGCONT handler (it restores the terminal modes) runs first. Returns the undo."""
+    loop = asyncio.get_running_loop()
+    previous = signal.getsignal(signal.SIGCONT)
+
+    def on_cont(signum: int, frame: FrameType | None) -> None:
+        if callable(previous):
+            previous(signum, frame)
+        loop.call_soon_threadsafe(app.repaint_all)
+
+    def restore() -> None:
+        signal.signal(signal.SIGCONT, previous)
+
+    signal.signal(signal.SIGCONT, on_cont)
+    return restore
 
 
 class DriveScreen(Screen[None]):
@@ -168,8 +190,10 @@ class DriveScreen(Screen[None]):
 
     def banner_words(self, snap: Snapshot, drive: DriveInput, now_s: float) -> tuple[str, str | None, str]:
         """(state, cause, detail): what the banner says, here and on every overlay's state strip."""
-        return (snap.state.value, None if snap.cause is None else snap.cause.value,
-                self._banner_detail(snap, drive, now_s))
+        detail = self._banner_detail(snap, drive, now_s)
+        if self.console.quitting:
+            detail = "stopping … the console quits at rest\nq again: fast stop and quit now"
+        return snap.state.value, None if snap.cause is None else snap.cause.value, detail
 
     @staticmethod
     def _banner_detail(snap: Snapshot, drive: DriveInput, now_s: float) -> str:
@@ -189,7 +213,10 @@ class DriveScreen(Screen[None]):
         if state is SafetyState.STOPPED:
             return f"{_wheels_word(snap)} · {arming}"
         if state is SafetyState.STOPPING:
-            return "ramping down · x: faster"
+            kind = snap.shaped.stopping
+            if kind is StopKind.CONTROLLED:
+                return "ramping down · x: faster"
+            return "fast stop: ramping down" if kind is StopKind.FAST else "stopping"
         if snap.source is not None:     # drive --input: what the device's holder must do, not the terminal's keys
             return snap.source.detail
         hold = drive.hold_left_s(now_s)
@@ -224,8 +251,8 @@ class DriveScreen(Screen[None]):
         }
         self.console.drive_key(f"zero {which}", changes[which])
 
-    def action_steps(self, factor: float) -> None:
-        self.console.scale_steps(factor)
+    def action_steps(self, coarser: bool) -> None:
+        self.console.scale_steps(coarser)
 
     def action_toggle_mode(self) -> None:
         self.console.toggle_mode()
@@ -266,10 +293,22 @@ class DriveApp(App[int]):
         self.on_ending_signal = on_ending_signal
         self.confirmed = not real_link
         self.last_snapshot: Snapshot | None = None
+        self.quitting = False                  # q while moving: the console closes once the robot is at rest
         self.ended_by: int | None = None       # SIGTERM / SIGHUP (console.ui.signals): the verb stops the robot
 
     def on_mount(self) -> None:
         exit_on_ending_signals(self, self.on_ending_signal)
+        self._restore_sigcont = repaint_on_resume(self)
+        self.app_resume_signal.subscribe(self, lambda _app: self.repaint_all())
+
+    def on_unmount(self) -> None:
+        self._restore_sigcont()
+
+    def repaint_all(self) -> None:
+        """Every cell drawn again (after a job-control stop the terminal may hold the shell's text)."""
+        self.screen.refresh(layout=True)
+        for screen in self._background_screens:
+            screen.refresh()
 
     def get_default_screen(self) -> Screen[None]:
         return DriveScreen(self.profile)
@@ -306,10 +345,13 @@ class DriveApp(App[int]):
         now = self.clock.now()
         if self.drive.mode is DriveMode.HOLD:
             self.loop.operator_alive()   # hold mode's own deadman zeroes an unattended request: no keep-alive asked
+        held_for = self.drive.held_for_s(now)
         if self.drive.expire(now):
             self.loop.request(0.0, 0.0)
-            self._note(f"hold released: no driving key for {self.drive.deadman_s:.2f} s, request to zero")
+            self._note(f"hold released: no driving key for {held_for:.2f} s, request to zero")
         snap = self.loop.snapshot()
+        if self.quitting and at_rest(self.loop):
+            self.exit(0)
         if snap.state is not SafetyState.ARMED and self.drive.request != (0.0, 0.0):
             self.drive.clear()   # the loop stopped on its own (link, deadman, fault): nothing may stay requested
         self.last_snapshot = snap
@@ -336,14 +378,33 @@ class DriveApp(App[int]):
         self.loop.stop(StopKind(kind), StopCause.OPERATOR)
 
     def action_quit_console(self) -> None:
+        """At rest: quit now. Moving: a controlled stop, "stopping ..." until at rest, then quit; q again while
+        stopping: a fast stop and quit now (the verb still waits for rest before it closes the loop)."""
         self._key("quit")
         self.drive.clear()
+        self.drive.cancel_window()
+        if self.quitting:
+            self.loop.stop(StopKind.FAST, StopCause.OPERATOR)     # (a program end's stop is always controlled)
+            self.exit(0)
+            return
         self.loop.stop(StopKind.CONTROLLED, StopCause.PROGRAM_END)
-        self.exit(0)
+        if at_rest(self.loop):
+            self.exit(0)
+            return
+        self.quitting = True
+        self._note("quit: stopping first; q again: fast stop and quit now")
+        self.tick()
 
     def arm_open(self) -> None:
         self._key("arm open")
         if not self.confirmed:
+            return
+        snap = self.last_snapshot
+        if self.quitting:
+            self._note("quitting: no arming")
+            return
+        if snap is not None and snap.state is SafetyState.ARMED:
+            self._note("already armed")
             return
         self.drive.open_window(Confirm.ARM, self.clock.now())
         self._note(f"arming: press enter within {self.drive.arm_window_s:g} s")
@@ -385,19 +446,18 @@ class DriveApp(App[int]):
             return
         now = self.clock.now()
         before = self.drive.request
+        self.drive.key(name, now)
         change(self.drive, now)
         if self.drive.request != before:
             self.loop.request(*self.drive.request)
-        else:
-            self.drive.refresh(now)
 
     def keepalive(self) -> None:
         self._key("keep-alive")
 
-    def scale_steps(self, factor: float) -> None:
+    def scale_steps(self, coarser: bool) -> None:
         self._key("steps")
-        self.drive.scale_steps(factor)
-        self._note(f"steps {self.drive.speed_step_mps:.3g} m/s, {self.drive.turn_step_radps:.3g} rad/s")
+        if self.drive.scale_steps(coarser):
+            self._note(f"steps {self.drive.speed_step_mps:g} m/s, {self.drive.turn_step_radps:g} rad/s")
 
     def toggle_mode(self) -> None:
         self._key("mode")

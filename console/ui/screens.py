@@ -25,9 +25,10 @@ ResultType = TypeVar("ResultType")
 STOP_KEYS = tuple((row.shown, row.short) for row in DRIVE_KEYS if row.group == STOPPING.description)
 
 HELP_NOTES = (
-    "Hold mode: the request lives only while driving keys keep arriving. Most terminals send no key-release "
-    "events, so holding a key works through the terminal's auto-repeat; with no driving key for the deadman time "
-    "({deadman:.2f} s, longer than a typical 0.5 s auto-repeat delay) the request falls to zero and the shaper "
+    "Hold mode: a held key means \"go at the speed I chose\": an arrow drives at one step ([ and ] choose it), a "
+    "digit at its preset; holding it does not add up. Most terminals send no key-release events, so holding works "
+    "through the terminal's auto-repeat: the console measures the repeat and ends the hold a few repeat intervals "
+    "after the last one (at most the deadman time, {deadman:.2f} s); then the request falls to zero and the shaper "
     "brings the robot to rest. It stays armed.",
     "Latched mode: the request stays until you change it or stop, as long as some key (k changes nothing) comes "
     "within the keep-alive time; the banner counts it down, and silence brings a controlled stop.",
@@ -46,7 +47,8 @@ CAUTIONS = (
     "• Check the profile's limits and wheel polarity first (a wrong sign drives the other way).",
     "• The console stops the robot when the link, its telemetry or this screen goes quiet; when this computer fails, "
     "only the robot's own watchdog ({watchdog:.2f} s) stops it.",
-    "• Most terminals send no key-release events: in hold mode a request outlives your key by up to {deadman:.2f} s.",
+    "• Most terminals send no key-release events: in hold mode a request outlives your key by a few auto-repeat "
+    "intervals, up to {deadman:.2f} s (longer only before the first repeat of a press).",
 )
 
 
