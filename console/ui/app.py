@@ -25,7 +25,8 @@ from console.session import at_rest
 from console.ui.driving import Confirm, DriveInput, DriveMode, DriveSettings
 from console.ui.input_panel import InputPanel
 from console.ui.keys import APP_BINDINGS, SCREEN_BINDINGS
-from console.ui.screens import CautionScreen, HelpScreen, Overlay
+from console.ui.monitor import MonitorScreen
+from console.ui.screens import CautionScreen, HelpScreen, Overlay, SetpointScreen
 from console.ui.signals import exit_on_ending_signals
 from console.ui.trace import KeyWireTrace
 from console.ui.widgets import (
@@ -266,6 +267,12 @@ class DriveScreen(Screen[None]):
     def action_help(self) -> None:
         self.app.push_screen(HelpScreen(self.console.drive.deadman_s))
 
+    def action_setpoint(self) -> None:
+        self.console.setpoint_open()
+
+    def action_monitor(self) -> None:
+        self.console.monitor_open()
+
 
 class DriveApp(App[int]):
     """The console. `tick()` is the only place snapshots are read; key actions are the only places requests are sent."""
@@ -359,6 +366,8 @@ class DriveApp(App[int]):
             self.drive_screen.show(snap, self.drive, now)
             if isinstance(self.screen, Overlay):
                 self.screen.show_state(*self.drive_screen.banner_words(snap, self.drive, now))
+            if isinstance(self.screen, MonitorScreen):
+                self.screen.pull(self.loop)
 
     def _note(self, text: str) -> None:
         t_s = self.last_snapshot.t_s if self.last_snapshot is not None else 0.0
@@ -453,6 +462,38 @@ class DriveApp(App[int]):
 
     def keepalive(self) -> None:
         self._key("keep-alive")
+
+    def monitor_open(self) -> None:
+        self._key("frames")
+        self.push_screen(MonitorScreen(self.profile.link))
+
+    def setpoint_open(self) -> None:
+        """Typed setpoints hold only in latched mode (hold mode would let them lapse at once) and only armed."""
+        self._key("setpoint")
+        snap = self.last_snapshot
+        if snap is None or snap.state is not SafetyState.ARMED:
+            self._note("not armed: a then enter arms")
+            return
+        if self.drive.mode is not DriveMode.LATCHED:
+            self._note("typed setpoints need latched mode: m switches")
+            return
+        envelope = self.profile.envelope
+        self.push_screen(SetpointScreen(self.drive.request, (envelope.top_reverse_speed_mps, envelope.top_speed_mps),
+                                        envelope.top_turn_rate_radps), self._setpoint_typed)
+
+    def _setpoint_typed(self, values: tuple[float, float] | None) -> None:
+        if values is None:
+            return
+        self._key("setpoint confirm")
+        snap = self.last_snapshot
+        if snap is None or snap.state is not SafetyState.ARMED or self.drive.mode is not DriveMode.LATCHED:
+            self._note("setpoint dropped: no longer armed in latched mode")
+            return
+        sent = self.drive.set_exactly(*values, self.clock.now())
+        self.loop.request(*sent)
+        clamped = "" if sent == values else \
+            f" (typed {values[0]:+g} m/s, {values[1]:+g} rad/s: clamped to the envelope)"
+        self._note(f"setpoint {sent[0]:+.3f} m/s, {sent[1]:+.3f} rad/s{clamped}")
 
     def scale_steps(self, coarser: bool) -> None:
         self._key("steps")

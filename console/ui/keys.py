@@ -53,11 +53,17 @@ SCREEN_BINDINGS: list[BindingType] = [
             tooltip="finer / coarser steps, along 0.01 0.02 0.05 0.1 0.2 0.5 ... (in hold mode: the speed a held "
                     "arrow drives at)"),
     Binding("right_square_bracket", "steps(True)", "steps", key_display="[ ]", show=False, group=DRIVING),
+    Binding("s", "setpoint", "exact setpoint", key_display="s", show=False, group=DRIVING,
+            tooltip="latched mode: type an exact speed (m/s) and turn rate (rad/s), enter sets them; still clamped to "
+                    "the envelope and shaped like every request"),
     Binding("m", "toggle_mode", "hold/latch", key_display="m", group=MODES,
             tooltip="switch hold ↔ latched mode (the request goes to zero on every switch)"),
     Binding("k", "keepalive", "still here", key_display="k", group=MODES,
             tooltip="still here: latched mode stops the robot (controlled) after the keep-alive time without a "
                     "key; k renews it and changes nothing else"),
+    Binding("f", "monitor", "frames", key_display="f", show=False, group=MODES,
+            tooltip="raw frame monitor: the last frames both ways, decoded and raw, CRC errors and malformed lines "
+                    "highlighted; p pauses, escape or f closes"),
     Binding("question_mark,f1", "help", "help", key_display="?", group=MODES,
             tooltip="this help; escape or ? closes it"),
 ]

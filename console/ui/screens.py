@@ -7,6 +7,7 @@ tick like the main banner) on top, the stop keys' line at the bottom, whatever t
 
 from __future__ import annotations
 
+import math
 from typing import TypeVar
 
 from rich.console import Group
@@ -14,9 +15,9 @@ from rich.table import Table
 from rich.text import Text
 from textual.app import ComposeResult
 from textual.binding import Binding
-from textual.containers import Vertical, VerticalScroll
+from textual.containers import Horizontal, Vertical, VerticalScroll
 from textual.screen import ModalScreen
-from textual.widgets import Static
+from textual.widgets import Input, Static
 
 from console.ui.keys import DRIVE_KEYS, STOPPING
 from console.ui.widgets import HintBar, SafetyBanner
@@ -89,6 +90,12 @@ class Overlay(ModalScreen[ResultType]):
     def body(self) -> ComposeResult:
         raise NotImplementedError
 
+    def on_mount(self) -> None:
+        """The state strip is filled at once, not at the next refresh tick."""
+        tick = getattr(self.app, "tick", None)
+        if callable(tick):
+            self.call_after_refresh(tick)
+
     def show_state(self, state: str, cause: str | None, detail: str) -> None:
         """The app's tick: the same words as the main banner."""
         if self.is_mounted:
@@ -136,3 +143,55 @@ class CautionScreen(Overlay[bool]):
 
     def action_confirm(self) -> None:
         self.dismiss(True)
+
+
+class SetpointScreen(Overlay[tuple[float, float]]):
+    """Type an exact speed and turn rate; enter sends both (empty keeps the current value), escape cancels.
+
+    The values go the way every request goes: clamped to the envelope's top speeds, then shaped by the loop (its
+    envelope and jerk-limited ramps), so a typed setpoint is approached as smoothly as a key's.
+    """
+
+    BINDINGS = [Binding("escape", "dismiss", "cancel")]
+    AUTO_FOCUS = "#setpoint-speed"
+    close_key = ("⏎ / esc", "set / cancel")
+
+    def __init__(self, current: tuple[float, float], speed_range: tuple[float, float], turn_max: float) -> None:
+        super().__init__(id="setpoint")
+        self.current = current
+        self.speed_range = speed_range
+        self.turn_max = turn_max
+
+    def body(self) -> ComposeResult:
+        (v, omega), (reverse, top) = self.current, self.speed_range
+        with Vertical(id="setpoint-box") as box:
+            box.border_title = "exact setpoint (latched)"
+            with Horizontal():
+                yield Static(f"speed m/s ({-reverse:+g}…{top:+g})", classes="setpoint-label")
+                yield Input(placeholder=f"{v:+.3f}", id="setpoint-speed")
+            with Horizontal():
+                yield Static(f"turn rad/s (±{self.turn_max:g})", classes="setpoint-label")
+                yield Input(placeholder=f"{omega:+.3f}", id="setpoint-turn")
+            yield Static("enter sets both (empty keeps the value); shaped like every request", id="setpoint-error")
+
+    def on_input_changed(self, event: Input.Changed) -> None:
+        """Typing is the operator's presence (latched mode's keep-alive counts it)."""
+        keepalive = getattr(self.app, "keepalive", None)
+        if callable(keepalive):
+            keepalive()
+
+    def on_input_submitted(self, event: Input.Submitted) -> None:
+        values = []
+        for field, name, now in (("#setpoint-speed", "speed", self.current[0]),
+                                 ("#setpoint-turn", "turn rate", self.current[1])):
+            text = self.query_one(field, Input).value.strip()
+            try:
+                value = float(text) if text else now
+            except ValueError:
+                value = math.nan
+            if not math.isfinite(value):
+                self.query_one("#setpoint-error", Static).update(f"{name}: {text!r} is not a number")
+                self.query_one(field, Input).focus()
+                return
+            values.append(value)
+        self.dismiss((values[0], values[1]))
