@@ -193,7 +193,7 @@ class DriveScreen(Screen[None]):
         """(state, cause, detail): what the banner says, here and on every overlay's state strip."""
         detail = self._banner_detail(snap, drive, now_s)
         if self.console.quitting:
-            detail = "stopping … the console quits at rest\nq again: fast stop and quit now"
+            detail = "stopping … quits at rest\nq again: fast stop, quit now"
         return snap.state.value, None if snap.cause is None else snap.cause.value, detail
 
     @staticmethod
@@ -210,7 +210,7 @@ class DriveScreen(Screen[None]):
         arming = f"cannot arm: {refusal}" if refusal is not None else \
             ("re-arm: a, enter" if state is SafetyState.STOPPED else "arm: a, enter")
         if state is SafetyState.DISARMED:
-            return f"no motion commanded · {arming}"
+            return f"no motion · {arming}"
         if state is SafetyState.STOPPED:
             return f"{_wheels_word(snap)} · {arming}"
         if state is SafetyState.STOPPING:
@@ -224,7 +224,7 @@ class DriveScreen(Screen[None]):
         if drive.mode is DriveMode.HOLD:
             return "HOLD: keep a key down" if hold is None else f"HOLD: lapses in {hold:.1f} s"
         left = drive.keepalive_left_s(now_s)
-        return f"LATCHED: request stays · k within {max(left, 0.0):.0f} s or it stops"
+        return f"LATCHED · k in {max(left, 0.0):.0f} s or it stops"
 
     def note(self, t_s: float, text: str) -> None:
         if self.ready:

@@ -122,13 +122,8 @@ class SafetyBanner(Panel):
         details = [part for line in detail.split("\n") for part in textwrap.wrap(line, max(width, 8)) or [""]]
         text = Rows()
         big = big_lines(word) if big_width(word) <= width else []
-        # the big word first; the plain word line beneath it goes when the detail needs its row and says no cause
-        if big and len(big) + 1 + len(details) <= height:
-            lines = [*big, first]
-        elif big and not cause and len(big) + len(details) <= height:
-            lines = big
-        else:
-            lines = [first]                                    # a low banner (the overlays' strip): one line
+        # the big word when it fits with everything else; the plain line (state and cause) is always there
+        lines = [*big, first] if big and len(big) + 1 + len(details) <= height else [first]
         for line in lines:
             text.append(line + "\n", self.style_of("banner--word"))
         text.append("\n".join(details[:max(height - len(lines), 1)]), self.style_of("banner--detail"))

@@ -84,7 +84,7 @@ async def test_quit_while_moving_waits_for_rest_showing_stopping() -> None:
         await pilot.pause()
         assert rig.app.return_code is None                   # still on screen while the robot ramps down
         assert rig.snap.state is SafetyState.STOPPING
-        assert "stopping … the console quits at rest" in banner_text(rig.app)
+        assert "stopping … quits at rest" in banner_text(rig.app)
         await pilot.press("a", "enter")                      # no arming while quitting
         states = []
         while rig.app.return_code is None and len(states) < 200:
