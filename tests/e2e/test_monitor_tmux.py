@@ -84,7 +84,7 @@ class Tap:
 def test_frame_monitor_shows_the_pty_traffic_and_marks_bad_lines() -> None:
     sim, robot_device = start_sim()
     tap = Tap(robot_device)
-    console = TmuxConsole([str(WREN), "--link", tap.device, "--mode", "latched"], size=(120, 40))
+    console = TmuxConsole([str(WREN), "--link", tap.device, "--mode", "latched", "--no-record"], size=(120, 40))
     try:
         console.started(r"before you drive")
         console.keys("y")                                     # a real link: the cautions first
