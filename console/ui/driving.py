@@ -190,10 +190,6 @@ class DriveInput:
     def centre_turn(self, now_s: float) -> tuple[float, float]:
         return self._set(self.v_mps, 0.0, now_s)
 
-    def refresh(self, now_s: float) -> None:
-        """A driving key repeated without changing anything (e.g. at a bound) still keeps a hold alive."""
-        self._refreshed_s = now_s
-
     def clear(self) -> None:
         """After a stop, a mode switch or (re-)arming: the request is zero and nothing is held."""
         self.v_mps = 0.0
