@@ -474,6 +474,9 @@ class DriveApp(App[int]):
         if snap is None or snap.state is not SafetyState.ARMED:
             self._note("not armed: a then enter arms")
             return
+        if snap.source is not None:     # drive --input: the device alone drives (the input panel says so)
+            self._note("an input device drives: no typed setpoints")
+            return
         if self.drive.mode is not DriveMode.LATCHED:
             self._note("typed setpoints need latched mode: m switches")
             return
