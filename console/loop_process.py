@@ -405,8 +405,9 @@ class LoopProcess:
                 kind, *payload = self._conn.recv()
                 if kind == "snap":
                     self._snapshot = payload[0]
-                elif kind == "wire":
-                    self._wire.extend(payload[0])
+                elif kind == "wire":            # two asks can cross one answer: keep each chunk once
+                    last = self._wire[-1].n if self._wire else 0
+                    self._wire.extend(chunk for chunk in payload[0] if chunk.n > last)
                 elif kind == "started":
                     self.scheduling = payload[0]
                 elif kind == "failed":
