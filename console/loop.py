@@ -17,6 +17,7 @@ import os
 import sys
 import threading
 import time
+from collections import deque
 from collections.abc import Callable
 from dataclasses import dataclass
 from typing import TYPE_CHECKING, Protocol
@@ -27,6 +28,7 @@ from console.core.link import LinkStats
 from console.core.safety import KIND_RANK, StopCause
 from console.core.step import Inputs, LoopCore, LoopStats, Snapshot, SourceStatus
 from console.errors import DiffdeckError, LinkLost
+from console.session import WIRE_KEPT, WireChunk
 from shaping.shaper import StopKind
 
 if TYPE_CHECKING:
@@ -224,6 +226,7 @@ class ControlLoop:
         self._t0: float | None = None
         self._sim_t = 0.0
         self._stats_mark = 0.0
+        self._wire: deque[WireChunk] = deque(maxlen=WIRE_KEPT)     # the frame monitor's ring (console.session)
         self._thread: threading.Thread | None = None
         self._closing = threading.Event()
         self.scheduling = "caller's thread"
@@ -301,6 +304,15 @@ class ControlLoop:
     def link_stats(self) -> LinkStats:
         return self._core.snapshot.link
 
+    def wire_since(self, n: int) -> tuple[WireChunk, ...]:
+        """The link's recent reads and writes numbered above n (the frame monitor); any thread."""
+        return tuple(chunk for chunk in tuple(self._wire) if chunk.n > n)
+
+    def _tap(self, t: float, sent: bool, data: bytes) -> None:
+        """Keep one read or write in the ring: one small object and a bounded append per cycle and direction."""
+        last = self._wire[-1].n if self._wire else 0
+        self._wire.append(WireChunk(last + 1, t, sent, data))
+
     # -- running ------------------------------------------------------------------------------------------------
 
     def start(self, realtime: bool = True) -> None:
@@ -360,6 +372,8 @@ class ControlLoop:
             if self._reopened is not None:
                 self._take_reopened(t)
             received = self._read(t)
+            if received:
+                self._tap(t, False, received)
             data, snapshot = core.step(t, tick.dt_s, inputs, received)
         except Exception as error:   # noqa: BLE001 - a bug must not leave the robot running on stale commands
             data = core.fail(t, error) if core.failure is None else b""
@@ -367,6 +381,7 @@ class ControlLoop:
         if data:
             try:
                 self._transport.write(data)
+                self._tap(t, True, data)
             except LinkLost as error:
                 core.link_gone(t, str(error))
         if self._recorder is not None:

@@ -28,6 +28,7 @@ import select
 import signal
 import threading
 import time
+from collections import deque
 from collections.abc import Callable
 from dataclasses import dataclass, replace
 from pathlib import Path
@@ -38,7 +39,7 @@ from console.core.safety import SafetyState, StopCause
 from console.core.step import Event, LoopStats, Snapshot
 from console.errors import InputError
 from console.loop import ControlLoop, WallClock, request_realtime
-from console.session import bring_to_rest
+from console.session import WIRE_KEPT, WireChunk, bring_to_rest
 from shaping.shaper import StopKind
 
 if TYPE_CHECKING:
@@ -170,7 +171,12 @@ class _Child:
         self.started = False
         self._handlers: dict[str, Callable[..., None]] = {
             "request": loop.request, "wheels": loop.request_wheels, "arm": loop.arm, "stop": loop.stop,
-            "op": loop.operator_alive, "ui": loop.ui_alive, "start": self._start, "reconnect": loop.reconnect}
+            "op": loop.operator_alive, "ui": loop.ui_alive, "start": self._start, "reconnect": loop.reconnect,
+            "wire": self._wire}
+
+    def _wire(self, since: int) -> None:
+        """The frame monitor asked: the ring's chunks it has not got yet (sent only when asked)."""
+        self.conn.send(("wire", self.loop.wire_since(since)))
 
     def _start(self, realtime: bool) -> None:
         gc.collect()
@@ -275,6 +281,7 @@ class LoopProcess:
         self._final: tuple[LoopStats, LinkStats] | None = None
         self._send_lock = threading.Lock()
         self._close_lock = threading.Lock()     # a second close() (signal thread, then the verb) waits for the first
+        self._wire: deque[WireChunk] = deque(maxlen=WIRE_KEPT)
         self._started = False
         self._closed = False
         options = _Options(self.url, None if record_path is None else str(record_path), operator_timeout_s,
@@ -345,6 +352,13 @@ class LoopProcess:
     def link_stats(self) -> LinkStats:
         return self._final[1] if self._final is not None else self._snapshot.link
 
+    def wire_since(self, n: int) -> tuple[WireChunk, ...]:
+        """The chunks received from the child numbered above n, and a request for the ones after them (they arrive
+        with the reader thread, one call later: the frame monitor asks once per screen refresh)."""
+        held = tuple(self._wire)
+        self._send("wire", max(n, held[-1].n if held else 0))
+        return tuple(chunk for chunk in held if chunk.n > n)
+
     @property
     def pid(self) -> int | None:
         return self._process.pid
@@ -391,6 +405,9 @@ class LoopProcess:
                 kind, *payload = self._conn.recv()
                 if kind == "snap":
                     self._snapshot = payload[0]
+                elif kind == "wire":            # two asks can cross one answer: keep each chunk once
+                    last = self._wire[-1].n if self._wire else 0
+                    self._wire.extend(chunk for chunk in payload[0] if chunk.n > last)
                 elif kind == "started":
                     self.scheduling = payload[0]
                 elif kind == "failed":

@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import time
 from collections.abc import Callable
+from dataclasses import dataclass
 from typing import TYPE_CHECKING, Protocol
 
 from console.core.safety import SafetyState, StopCause
@@ -25,6 +26,20 @@ STOP_MARGIN_S = 1.0
 """Added to the time a stop should take (its ramps from the current state) before it is escalated."""
 REST_POLL_S = 0.01
 ESCALATION = (StopKind.CONTROLLED, StopKind.FAST, StopKind.IMMEDIATE)
+
+
+WIRE_KEPT = 512
+"""Link reads and writes the runner keeps for the frame monitor (about 2.5 s at 100 Hz both ways)."""
+
+
+@dataclass(frozen=True, slots=True)
+class WireChunk:
+    """One transport read or write, as the bytes went (the frame monitor splits and decodes them)."""
+
+    n: int              # running number from 1 (a Python int: it never wraps)
+    t_s: float          # loop time
+    sent: bool          # True: console -> robot
+    data: bytes
 
 
 class LoopHandle(Protocol):
@@ -54,6 +69,8 @@ class LoopHandle(Protocol):
     def stats(self) -> LoopStats: ...
 
     def link_stats(self) -> LinkStats: ...
+
+    def wire_since(self, n: int) -> tuple[WireChunk, ...]: ...   # the kept chunks numbered above n, oldest first
 
     def start(self, realtime: bool = True) -> None: ...
 

@@ -8,8 +8,11 @@ Stop keys are App-level priority bindings: they act in every state and above eve
 
 from __future__ import annotations
 
+import asyncio
 import math
+import signal
 from collections.abc import Callable
+from types import FrameType
 from typing import TYPE_CHECKING
 
 from textual.app import App, ComposeResult
@@ -18,10 +21,12 @@ from textual.screen import Screen
 
 from console.core.safety import SafetyState, StopCause
 from console.links import is_simulated
+from console.session import at_rest
 from console.ui.driving import Confirm, DriveInput, DriveMode, DriveSettings
 from console.ui.input_panel import InputPanel
 from console.ui.keys import APP_BINDINGS, SCREEN_BINDINGS
-from console.ui.screens import CautionScreen, HelpScreen
+from console.ui.monitor import MonitorScreen
+from console.ui.screens import CautionScreen, HelpScreen, Overlay, SetpointScreen
 from console.ui.signals import exit_on_ending_signals
 from console.ui.trace import KeyWireTrace
 from console.ui.widgets import (
@@ -66,6 +71,24 @@ def _wheels_word(snap: Snapshot) -> str:
     if left is None or right is None or snap.link.lost is not None:
         return "wheel motion unknown"
     return "at rest" if max(abs(left), abs(right)) < AT_REST_RADPS else "wheels still turning"
+
+
+def repaint_on_resume(app: DriveApp) -> Callable[[], None]:
+    """SIGCONT (resumed after a job-control stop): the whole screen is drawn again, as the shell may have written
+    over it. Textual's own SIGCONT handler (it restores the terminal modes) runs first. Returns the undo."""
+    loop = asyncio.get_running_loop()
+    previous = signal.getsignal(signal.SIGCONT)
+
+    def on_cont(signum: int, frame: FrameType | None) -> None:
+        if callable(previous):
+            previous(signum, frame)
+        loop.call_soon_threadsafe(app.repaint_all)
+
+    def restore() -> None:
+        signal.signal(signal.SIGCONT, previous)
+
+    signal.signal(signal.SIGCONT, on_cont)
+    return restore
 
 
 class DriveScreen(Screen[None]):
@@ -138,8 +161,7 @@ class DriveScreen(Screen[None]):
             profile.name, snap.link.url, drive.mode.value,
             f"{drive.speed_step_mps:.3g} m/s · {drive.turn_step_radps:.3g} rad/s", snap.t_s,
         )
-        self.banner.show(snap.state.value, None if snap.cause is None else snap.cause.value,
-                                          self._banner_detail(snap, drive, now_s))
+        self.banner.show(*self.banner_words(snap, drive, now_s))
         self.input_panel.show(snap.source)
         self.link_panel.show(snap, profile.link.rate_hz)
         self.limit_panel.show(snap)
@@ -167,6 +189,13 @@ class DriveScreen(Screen[None]):
                           repaint=repaint)
         self.event_log.add_loop(snap.events)
 
+    def banner_words(self, snap: Snapshot, drive: DriveInput, now_s: float) -> tuple[str, str | None, str]:
+        """(state, cause, detail): what the banner says, here and on every overlay's state strip."""
+        detail = self._banner_detail(snap, drive, now_s)
+        if self.console.quitting:
+            detail = "stopping … quits at rest\nq again: fast stop, quit now"
+        return snap.state.value, None if snap.cause is None else snap.cause.value, detail
+
     @staticmethod
     def _banner_detail(snap: Snapshot, drive: DriveInput, now_s: float) -> str:
         """Only what is known: the robot's state needs live telemetry; the arming hint only when arming would work."""
@@ -181,18 +210,21 @@ class DriveScreen(Screen[None]):
         arming = f"cannot arm: {refusal}" if refusal is not None else \
             ("re-arm: a, enter" if state is SafetyState.STOPPED else "arm: a, enter")
         if state is SafetyState.DISARMED:
-            return f"no motion commanded · {arming}"
+            return f"no motion · {arming}"
         if state is SafetyState.STOPPED:
             return f"{_wheels_word(snap)} · {arming}"
         if state is SafetyState.STOPPING:
-            return "ramping down · x: faster"
+            kind = snap.shaped.stopping
+            if kind is StopKind.CONTROLLED:
+                return "ramping down · x: faster"
+            return "fast stop: ramping down" if kind is StopKind.FAST else "stopping"
         if snap.source is not None:     # drive --input: what the device's holder must do, not the terminal's keys
             return snap.source.detail
         hold = drive.hold_left_s(now_s)
         if drive.mode is DriveMode.HOLD:
             return "HOLD: keep a key down" if hold is None else f"HOLD: lapses in {hold:.1f} s"
         left = drive.keepalive_left_s(now_s)
-        return f"LATCHED: request stays · k within {max(left, 0.0):.0f} s or it stops"
+        return f"LATCHED · k in {max(left, 0.0):.0f} s or it stops"
 
     def note(self, t_s: float, text: str) -> None:
         if self.ready:
@@ -220,8 +252,8 @@ class DriveScreen(Screen[None]):
         }
         self.console.drive_key(f"zero {which}", changes[which])
 
-    def action_steps(self, factor: float) -> None:
-        self.console.scale_steps(factor)
+    def action_steps(self, coarser: bool) -> None:
+        self.console.scale_steps(coarser)
 
     def action_toggle_mode(self) -> None:
         self.console.toggle_mode()
@@ -235,6 +267,12 @@ class DriveScreen(Screen[None]):
     def action_help(self) -> None:
         self.app.push_screen(HelpScreen(self.console.drive.deadman_s))
 
+    def action_setpoint(self) -> None:
+        self.console.setpoint_open()
+
+    def action_monitor(self) -> None:
+        self.console.monitor_open()
+
 
 class DriveApp(App[int]):
     """The console. `tick()` is the only place snapshots are read; key actions are the only places requests are sent."""
@@ -242,7 +280,7 @@ class DriveApp(App[int]):
     CSS_PATH = "drive.tcss"
     TITLE = "diffdeck drive"
     HORIZONTAL_BREAKPOINTS = [(0, "-narrow"), (100, "-wide")]
-    VERTICAL_BREAKPOINTS = [(0, "-short"), (34, "-tall")]
+    VERTICAL_BREAKPOINTS = [(0, "-short"), (34, "-mid"), (40, "-tall")]
     ENABLE_COMMAND_PALETTE = False
     BINDINGS = APP_BINDINGS
 
@@ -262,10 +300,22 @@ class DriveApp(App[int]):
         self.on_ending_signal = on_ending_signal
         self.confirmed = not real_link
         self.last_snapshot: Snapshot | None = None
+        self.quitting = False                  # q while moving: the console closes once the robot is at rest
         self.ended_by: int | None = None       # SIGTERM / SIGHUP (console.ui.signals): the verb stops the robot
 
     def on_mount(self) -> None:
         exit_on_ending_signals(self, self.on_ending_signal)
+        self._restore_sigcont = repaint_on_resume(self)
+        self.app_resume_signal.subscribe(self, lambda _app: self.repaint_all())
+
+    def on_unmount(self) -> None:
+        self._restore_sigcont()
+
+    def repaint_all(self) -> None:
+        """Every cell drawn again (after a job-control stop the terminal may hold the shell's text)."""
+        self.screen.refresh(layout=True)
+        for screen in self._background_screens:
+            screen.refresh()
 
     def get_default_screen(self) -> Screen[None]:
         return DriveScreen(self.profile)
@@ -302,15 +352,22 @@ class DriveApp(App[int]):
         now = self.clock.now()
         if self.drive.mode is DriveMode.HOLD:
             self.loop.operator_alive()   # hold mode's own deadman zeroes an unattended request: no keep-alive asked
+        held_for = self.drive.held_for_s(now)
         if self.drive.expire(now):
             self.loop.request(0.0, 0.0)
-            self._note(f"hold released: no driving key for {self.drive.deadman_s:.2f} s, request to zero")
+            self._note(f"hold released: no driving key for {held_for:.2f} s, request to zero")
         snap = self.loop.snapshot()
+        if self.quitting and at_rest(self.loop):
+            self.exit(0)
         if snap.state is not SafetyState.ARMED and self.drive.request != (0.0, 0.0):
             self.drive.clear()   # the loop stopped on its own (link, deadman, fault): nothing may stay requested
         self.last_snapshot = snap
         if self.drive_screen.ready:
             self.drive_screen.show(snap, self.drive, now)
+            if isinstance(self.screen, Overlay):
+                self.screen.show_state(*self.drive_screen.banner_words(snap, self.drive, now))
+            if isinstance(self.screen, MonitorScreen):
+                self.screen.pull(self.loop)
 
     def _note(self, text: str) -> None:
         t_s = self.last_snapshot.t_s if self.last_snapshot is not None else 0.0
@@ -330,14 +387,33 @@ class DriveApp(App[int]):
         self.loop.stop(StopKind(kind), StopCause.OPERATOR)
 
     def action_quit_console(self) -> None:
+        """At rest: quit now. Moving: a controlled stop, "stopping ..." until at rest, then quit; q again while
+        stopping: a fast stop and quit now (the verb still waits for rest before it closes the loop)."""
         self._key("quit")
         self.drive.clear()
+        self.drive.cancel_window()
+        if self.quitting:
+            self.loop.stop(StopKind.FAST, StopCause.OPERATOR)     # (a program end's stop is always controlled)
+            self.exit(0)
+            return
         self.loop.stop(StopKind.CONTROLLED, StopCause.PROGRAM_END)
-        self.exit(0)
+        if at_rest(self.loop):
+            self.exit(0)
+            return
+        self.quitting = True
+        self._note("quit: stopping first; q again: fast stop and quit now")
+        self.tick()
 
     def arm_open(self) -> None:
         self._key("arm open")
         if not self.confirmed:
+            return
+        snap = self.last_snapshot
+        if self.quitting:
+            self._note("quitting: no arming")
+            return
+        if snap is not None and snap.state is SafetyState.ARMED:
+            self._note("already armed")
             return
         self.drive.open_window(Confirm.ARM, self.clock.now())
         self._note(f"arming: press enter within {self.drive.arm_window_s:g} s")
@@ -379,19 +455,53 @@ class DriveApp(App[int]):
             return
         now = self.clock.now()
         before = self.drive.request
+        self.drive.key(name, now)
         change(self.drive, now)
         if self.drive.request != before:
             self.loop.request(*self.drive.request)
-        else:
-            self.drive.refresh(now)
 
     def keepalive(self) -> None:
         self._key("keep-alive")
 
-    def scale_steps(self, factor: float) -> None:
+    def monitor_open(self) -> None:
+        self._key("frames")
+        self.push_screen(MonitorScreen(self.profile.link))
+
+    def setpoint_open(self) -> None:
+        """Typed setpoints hold only in latched mode (hold mode would let them lapse at once) and only armed."""
+        self._key("setpoint")
+        snap = self.last_snapshot
+        if snap is None or snap.state is not SafetyState.ARMED:
+            self._note("not armed: a then enter arms")
+            return
+        if snap.source is not None:     # drive --input: the device alone drives (the input panel says so)
+            self._note("an input device drives: no typed setpoints")
+            return
+        if self.drive.mode is not DriveMode.LATCHED:
+            self._note("typed setpoints need latched mode: m switches")
+            return
+        envelope = self.profile.envelope
+        self.push_screen(SetpointScreen(self.drive.request, (envelope.top_reverse_speed_mps, envelope.top_speed_mps),
+                                        envelope.top_turn_rate_radps), self._setpoint_typed)
+
+    def _setpoint_typed(self, values: tuple[float, float] | None) -> None:
+        if values is None:
+            return
+        self._key("setpoint confirm")
+        snap = self.last_snapshot
+        if snap is None or snap.state is not SafetyState.ARMED or self.drive.mode is not DriveMode.LATCHED:
+            self._note("setpoint dropped: no longer armed in latched mode")
+            return
+        sent = self.drive.set_exactly(*values, self.clock.now())
+        self.loop.request(*sent)
+        clamped = "" if sent == values else \
+            f" (typed {values[0]:+g} m/s, {values[1]:+g} rad/s: clamped to the envelope)"
+        self._note(f"setpoint {sent[0]:+.3f} m/s, {sent[1]:+.3f} rad/s{clamped}")
+
+    def scale_steps(self, coarser: bool) -> None:
         self._key("steps")
-        self.drive.scale_steps(factor)
-        self._note(f"steps {self.drive.speed_step_mps:.3g} m/s, {self.drive.turn_step_radps:.3g} rad/s")
+        if self.drive.scale_steps(coarser):
+            self._note(f"steps {self.drive.speed_step_mps:g} m/s, {self.drive.turn_step_radps:g} rad/s")
 
     def toggle_mode(self) -> None:
         self._key("mode")

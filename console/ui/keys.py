@@ -24,7 +24,8 @@ APP_BINDINGS: list[BindingType] = [
     Binding("x", "stop('fast')", "fast stop", key_display="x", priority=True, group=STOPPING,
             tooltip="fast stop: ramp down with the profile's stop deceleration and stop jerk"),
     Binding("q,ctrl+c", "quit_console", "quit", key_display="q", priority=True, group=STOPPING,
-            tooltip="controlled stop, then quit the console"),
+            tooltip="controlled stop, then quit once at rest (the banner says \"stopping …\"); q again: fast stop "
+                    "and quit at once"),
 ]
 """App-level priority bindings: they act in every state and above every overlay."""
 
@@ -36,10 +37,10 @@ SCREEN_BINDINGS: list[BindingType] = [
     Binding("r", "reconnect_open", "reconnect", key_display="r ⏎", show=False, group=ARMING,
             tooltip="after a link loss: reopen the same link (enter within 2 s confirms); arm again afterwards"),
     Binding("up", "nudge(1, 0)", "speed", key_display="↑↓", group=DRIVING,
-            tooltip="speed request + / − one step"),
+            tooltip="latched: speed request + / − one step; hold: forward / reverse at one step while held"),
     Binding("down", "nudge(-1, 0)", "speed", key_display="↑↓", group=DRIVING),
     Binding("left", "nudge(0, 1)", "turn", key_display="←→", group=DRIVING,
-            tooltip="turn-rate request: left (counter-clockwise) / right, one step"),
+            tooltip="turn rate left (counter-clockwise) / right: latched + / − one step; hold: one step while held"),
     Binding("right", "nudge(0, -1)", "turn", key_display="←→", group=DRIVING),
     *(Binding(str(n), f"preset({n})", "preset", key_display="1-9", group=DRIVING,
               tooltip="speed preset: 10 % … 90 % of the envelope's top speed (reverse if reversing)")
@@ -48,14 +49,21 @@ SCREEN_BINDINGS: list[BindingType] = [
             tooltip="0: speed request to zero (turn rate kept); c: turn-rate request to zero (speed kept); z: both"),
     Binding("c", "zero('turn')", "zero", key_display="0 c z", show=False, group=DRIVING),
     Binding("z", "zero('both')", "zero", key_display="0 c z", show=False, group=DRIVING),
-    Binding("left_square_bracket", "steps(0.5)", "steps", key_display="[ ]", show=False, group=DRIVING,
-            tooltip="finer / coarser nudge steps (half / double)"),
-    Binding("right_square_bracket", "steps(2.0)", "steps", key_display="[ ]", show=False, group=DRIVING),
+    Binding("left_square_bracket", "steps(False)", "steps", key_display="[ ]", show=False, group=DRIVING,
+            tooltip="finer / coarser steps, along 0.01 0.02 0.05 0.1 0.2 0.5 ... (in hold mode: the speed a held "
+                    "arrow drives at)"),
+    Binding("right_square_bracket", "steps(True)", "steps", key_display="[ ]", show=False, group=DRIVING),
+    Binding("s", "setpoint", "exact setpoint", key_display="s", show=False, group=DRIVING,
+            tooltip="latched mode: type an exact speed (m/s) and turn rate (rad/s), enter sets them; still clamped to "
+                    "the envelope and shaped like every request"),
     Binding("m", "toggle_mode", "hold/latch", key_display="m", group=MODES,
             tooltip="switch hold ↔ latched mode (the request goes to zero on every switch)"),
     Binding("k", "keepalive", "still here", key_display="k", group=MODES,
             tooltip="still here: latched mode stops the robot (controlled) after the keep-alive time without a "
                     "key; k renews it and changes nothing else"),
+    Binding("f", "monitor", "frames", key_display="f", show=False, group=MODES,
+            tooltip="raw frame monitor: the last frames both ways, decoded and raw, CRC errors and malformed lines "
+                    "highlighted; p pauses, escape or f closes"),
     Binding("question_mark,f1", "help", "help", key_display="?", group=MODES,
             tooltip="this help; escape or ? closes it"),
 ]

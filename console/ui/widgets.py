@@ -8,6 +8,7 @@ apart by text or glyph, never by colour alone.
 from __future__ import annotations
 
 import math
+import textwrap
 from collections import deque
 from typing import TYPE_CHECKING, Any
 
@@ -32,7 +33,10 @@ AGE_STEP_MS = 20
 
 
 def signed(value: float | None, digits: int = 2) -> str:
-    return "—" if value is None or not math.isfinite(value) else f"{value:+.{digits}f}"
+    """A signed number; one that rounds to zero is written +0.00, never -0.00."""
+    if value is None or not math.isfinite(value):
+        return "—"
+    return f"{round(value, digits) + 0.0:+.{digits}f}"   # + 0.0 turns a negative zero into zero
 
 
 def _col(value: float, lo: float, hi: float, width: int) -> int:
@@ -114,20 +118,21 @@ class SafetyBanner(Panel):
             return Rows()
         state, cause, detail = self._shown
         word = state.upper()
-        text = Rows()
-        if big_width(word) <= width:
-            for line in big_lines(word):
-                text.append(line + "\n", self.style_of("banner--word"))
-        else:
-            text.append(f"{word}\n\n\n", self.style_of("banner--word"))
         first = f"{word} — cause: {cause}" if cause else word
-        text.append(first + "\n", self.style_of("banner--word"))
-        text.append(detail, self.style_of("banner--detail"))
+        details = [part for line in detail.split("\n") for part in textwrap.wrap(line, max(width, 8)) or [""]]
+        text = Rows()
+        big = big_lines(word) if big_width(word) <= width else []
+        # the big word when it fits with everything else; the plain line (state and cause) is always there
+        lines = [*big, first] if big and len(big) + 1 + len(details) <= height else [first]
+        for line in lines:
+            text.append(line + "\n", self.style_of("banner--word"))
+        text.append("\n".join(details[:max(height - len(lines), 1)]), self.style_of("banner--detail"))
         return text.centred(width)
 
 
 class TitleBar(Panel):
-    """One line: program, profile, link, driving mode, nudge steps, loop time."""
+    """One line: program, robot name, driving mode, link, loop time, nudge steps; the later parts give way first
+    when the line is too short, the robot's name never."""
 
     def show(self, profile_name: str, url: str, mode: str, steps: str, t_s: float) -> None:
         self._update((profile_name, url, mode, steps, int(t_s)))
@@ -136,21 +141,46 @@ class TitleBar(Panel):
         if self._shown is None:
             return Rows()
         name, url, mode, steps, t_s = self._shown
-        return (Rows().append(" diffdeck drive ", "bold reverse").append("  ").append(f"{mode.upper()} mode", "bold")
-                .append(f"  ·  link {url}  ·  t {t_s} s  ·  steps {steps}  ·  {name}"))
+        text = Rows().append(" diffdeck drive ", "bold reverse").append(" ").append(name, "bold")
+        used = len(" diffdeck drive  ") + len(name)
+        for part in (f"{mode.upper()} mode", f"link {url}", f"t {t_s} s", f"steps {steps}"):
+            if used + 3 + len(part) > width:
+                break
+            text.append(" · ").append(part, "bold" if part.endswith(" mode") else None)
+            used += 3 + len(part)
+        return text
 
 
 class HintBar(Panel):
-    """The keys that matter most (the bindings marked `show`), always in view; `?` opens the full list."""
+    """The keys that matter most (the bindings marked `show`), always in view; `?` opens the full list.
+
+    The stop keys (quit among them) come first, then `?`; the other keys follow while whole ones fit, so a narrow
+    terminal loses a driving hint, never a stop key. `keys` replaces the bindings' rows (an overlay's own line).
+    """
+
+    def __init__(self, keys: tuple[tuple[str, str], ...] | None = None, *, id: str | None = None) -> None:
+        super().__init__(id=id)
+        self.keys = keys
 
     def on_mount(self) -> None:
-        self._update(tuple((row.shown, row.short) for row in DRIVE_KEYS if row.hint))
+        if self.keys is not None:
+            self._update(self.keys)
+            return
+        first = [row for row in DRIVE_KEYS if row.hint and row.group == STOPPING.description]
+        helps = [row for row in DRIVE_KEYS if row.hint and row.shown == "?"]
+        rest = [row for row in DRIVE_KEYS if row.hint and row not in first and row not in helps]
+        self._update(tuple((row.shown, row.short) for row in (*first, *helps, *rest)))
 
     def paint(self, width: int, height: int) -> Rows:
         text = Rows()
+        used = 0
         for key, what in self._shown or ():
+            cells = len(key) + len(what) + 4
+            if used + cells > width and used:
+                continue
             text.append(f" {key} ", "bold reverse")
             text.append(f" {what} ")
+            used += cells
         return text
 
 
@@ -165,7 +195,8 @@ def _decoder_text(decoder: DecoderCounts) -> str:
 
 
 class LinkPanel(Panel):
-    """Link health and loop timing: the first thing to read when the robot does not do what the screen says."""
+    """Link health and loop timing: the first thing to read when the robot does not do what the screen says. The
+    rows go by importance (a short panel cuts the last ones): telemetry, battery and robot flags before timing."""
 
     def show(self, snap: Snapshot, rate_set_hz: float) -> None:
         link, loop = snap.link, snap.loop
@@ -189,11 +220,11 @@ class LinkPanel(Panel):
             ("url", url),
             ("rate", f"{rate:.1f} of {rate_set:g} Hz"),
             ("telemetry", "none yet" if age is None else f"≤ {age} ms ago"),
-            ("round trip", "—" if rtt is None else f"{rtt} ms"),
+            ("battery", ("—" if battery is None else f"{battery:.1f} V") + (f"  {' '.join(names)}" if names else "")),
             ("errors", _decoder_text(decoder)),
+            ("round trip", "—" if rtt is None else f"{rtt} ms"),
             ("loop late", f"p99 {p99:.2f} max {pmax:.{1 if pmax >= 10.0 else 2}f} ms"),
             ("missed", f"{overruns} period" + ("" if overruns == 1 else "s")),
-            ("battery", ("—" if battery is None else f"{battery:.1f} V") + (f"  {' '.join(names)}" if names else "")),
             ("frames", f"tx {sent} rx {received}"),
         ]
         text = Rows()
@@ -346,20 +377,26 @@ class WheelPanel(Panel):
         for i, (name, radps, wire, meas, sign) in enumerate(wheels):
             saturated = abs(radps) >= bound - 1e-6
             u = self.unit_digits
-            meas_unit = "—" if meas is None else f"{meas * self.per_radps * sign:+.{u}f}"
-            if width >= 64:
-                text.append(f"{name} ", "bold")
-                text.append(f"cmd {signed(radps)} rad/s ({wire:+.{u}f} {self.suffix})  ", self.style_of("wheel--cmd"))
-                text.append(f"meas {signed(meas, 1)} rad/s ({meas_unit} {self.suffix}){_age(stale_s, meas)}",
-                            meas_style)
-            else:
-                text.append(f"{name[0].upper()} ", "bold")
-                text.append(f"▆{signed(radps, 1)} ", self.style_of("wheel--cmd"))
-                text.append(f"▲{signed(meas, 1)} rad/s ", meas_style)
-                text.append(f"▆{wire:+.{u}f} ", self.style_of("wheel--cmd"))
-                text.append(f"▲{meas_unit} {self.suffix}{_age(stale_s, meas)}", meas_style)
+            meas_unit = "—" if meas is None else signed(meas * self.per_radps * sign, u)
+            wire_text, age = signed(wire, u), _age(stale_s, meas)
+            cmd, meas_s = self.style_of("wheel--cmd"), meas_style
+            # the first form that fits whole: rad/s (the unit included) is never cut, the firmware's unit goes first
+            forms: list[list[tuple[str, Style | str | None]]] = [
+                [(f"{name} ", "bold"), (f"cmd {signed(radps)} rad/s ({wire_text} {self.suffix})  ", cmd),
+                 (f"meas {signed(meas, 1)} rad/s ({meas_unit} {self.suffix}){age}", meas_s)],
+                [(f"{name[0].upper()} ", "bold"), (f"▆{signed(radps, 1)} ", cmd),
+                 (f"▲{signed(meas, 1)} rad/s ", meas_s), (f"▆{wire_text} ", cmd),
+                 (f"▲{meas_unit} {self.suffix}{age}", meas_s)],
+                [(f"{name[0].upper()} ", "bold"), (f"▆{signed(radps, 1)} ", cmd),
+                 (f"▲{signed(meas, 1)} rad/s{age}", meas_s)],
+            ]
+            flag: list[tuple[str, Style | str | None]] = []
             if saturated:
-                text.append("  AT BOUND", self.style_of("wheel--sat"))
+                flag.append(("  AT BOUND", self.style_of("wheel--sat")))
+            candidates = [form + flag for form in forms]
+            line = next((c for c in candidates if sum(len(part) for part, _ in c) <= width), candidates[-1])
+            for part, style in line:
+                text.append(part, style)
             text.append("\n")
             zero, c_lo, c_hi, c_cmd = (_col(v, -scale, scale, width) for v in (0.0, -bound, bound, radps))
             c_meas = None if meas is None else _col(meas, -scale, scale, width)
@@ -467,6 +504,7 @@ class EventLog(Panel):
         for i, (t_s, message, kind) in enumerate(rows):
             text.append(f"{t_s:8.2f} ", self.style_of("event--time"))
             text.append(f"{kind:<6.6} ", "dim")
+            message = message.removeprefix(f"{kind}: ")      # the kind column already says it ("limit: ...")
             text.append(message, self.style_of("event--ui") if kind == "ui" else None)
             if i < len(rows) - 1:
                 text.append("\n")
@@ -599,7 +637,7 @@ class TopView(Panel):
             canvas.polyline(tx, ty, self._TRAIL)
         arrow = self._ARROWS[round(heading / (math.pi / 4.0)) % 8]
         canvas.mark(int(cx // 2), int(cy // 4), arrow, self.style_of("top--robot"))
-        text.append(f"{x0:+.2f},{y0:+.2f}m {math.degrees(heading) % 360.0:.0f}° grid {grid_m:g}m",
+        text.append(f"{signed(x0)},{signed(y0)}m {round(math.degrees(heading)) % 360}° grid {grid_m:g}m",
                     self.style_of("top--label"))
         for line in canvas.to_rows({self._GRID: self.style_of("top--grid"), self._TRAIL: self.style_of("top--trail")}):
             text.newline()

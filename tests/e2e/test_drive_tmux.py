@@ -37,3 +37,23 @@ def test_drive_arms_drives_and_stops_in_a_real_terminal() -> None:
         assert console.wait_closed(), "the console did not exit on q"
     finally:
         console.close()
+
+
+@pytest.mark.skipif(_reason is not None, reason=_reason or "")
+def test_quit_while_moving_shows_stopping_until_at_rest_at_80x24() -> None:
+    console = TmuxConsole(["profiles/wren.toml", "--mode", "latched"], size=(80, 24))
+    try:
+        console.started(r"DISARMED")
+        console.wait_for(r"telemetry +≤ \d+ ms ago")
+        console.keys("a")
+        console.wait_for(r"ENTER")
+        console.keys("Enter")
+        console.wait_for(r"(?<![A-Z])ARMED(?![A-Z])")
+        console.keys("9")
+        console.wait_for(r"█\+0\.[5-9]\d")                      # well under way (narrow gauge)
+        console.keys("q")
+        screen = console.wait_for(r"STOPPING — cause: program end")   # the stop taken; the screen stays
+        assert "stopping … quits at rest" in screen
+        assert console.wait_closed(), "the console did not exit once at rest"
+    finally:
+        console.close()

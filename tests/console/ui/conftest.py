@@ -4,10 +4,12 @@ ticks (snapshot in, heartbeat out) between chunks of loop time exactly as its ti
 
 from __future__ import annotations
 
+import io
 from dataclasses import dataclass
 from pathlib import Path
 
 import pytest
+from rich.console import Console
 
 from console.core.step import Snapshot
 from console.links import open_link
@@ -67,3 +69,12 @@ def rig() -> Rig:
 @pytest.fixture
 def latched_rig() -> Rig:
     return make_rig(mode=DriveMode.LATCHED)
+
+
+def screen_text(app: DriveApp) -> str:
+    """The whole terminal as plain text, overlays and the screens beneath them composed as a person sees them."""
+    width, height = app.size
+    console = Console(width=width, height=height, file=io.StringIO(), record=True, legacy_windows=False,
+                      safe_box=False, color_system=None)
+    console.print(app.screen._compositor.render_update(full=True, screen_stack=app._background_screens))
+    return console.export_text()

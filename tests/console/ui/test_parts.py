@@ -8,7 +8,8 @@ import pytest
 from console.profile import load_profile
 from console.ui.bigtext import big_lines
 from console.ui.braille import BrailleCanvas
-from console.ui.driving import Confirm, DriveInput, DriveMode, DriveSettings
+from console.ui.driving import Confirm, DriveInput, DriveMode, DriveSettings, KeyRepeat, step_in_series
+from console.ui.widgets import signed
 from tests.console.ui.conftest import PROFILES
 
 
@@ -55,6 +56,7 @@ def drive() -> DriveInput:
 
 def test_requests_stay_inside_the_envelope(drive: DriveInput) -> None:
     envelope = drive.envelope
+    drive.toggle_mode()                                  # latched: nudges add up (hold mode sets one step)
     for _ in range(100):
         drive.nudge(-1, 1, 0.0)
     assert drive.request == (-envelope.top_reverse_speed_mps, envelope.top_turn_rate_radps)
@@ -64,6 +66,7 @@ def test_requests_stay_inside_the_envelope(drive: DriveInput) -> None:
 
 
 def test_nudging_back_lands_exactly_on_zero(drive: DriveInput) -> None:
+    drive.toggle_mode()
     for _ in range(7):
         drive.nudge(1, 1, 0.0)
     for _ in range(7):
@@ -92,3 +95,55 @@ def test_arming_window(drive: DriveInput) -> None:
     assert not drive.confirm(Confirm.RECONNECT, 5.5)     # a window is for one purpose
     assert drive.confirm(Confirm.ARM, 6.0)
     assert not drive.confirm(Confirm.ARM, 6.1)          # one confirm per window
+
+
+def test_hold_mode_sets_one_step_per_axis_instead_of_adding(drive: DriveInput) -> None:
+    for t in range(20):
+        drive.nudge(1, 0, t * 0.03)
+    assert drive.request == (pytest.approx(drive.speed_step_mps), 0.0)
+    drive.nudge(0, -1, 1.0)                             # the other axis joins; the speed stays
+    assert drive.request == (pytest.approx(drive.speed_step_mps), pytest.approx(-drive.turn_step_radps))
+    drive.nudge(-1, 0, 1.1)
+    assert drive.request[0] == pytest.approx(-drive.speed_step_mps)
+
+
+def test_key_repeat_is_measured_and_ends_a_hold_a_few_intervals_after_the_last_repeat() -> None:
+    repeat = KeyRepeat()
+    assert repeat.release_after_s(0.7) == 0.7          # nothing measured: the configured time
+    times = [0.0, 0.55] + [0.55 + 0.033 * k for k in range(1, 10)]   # delay 0.55 s, then 30 repeats a second
+    for t in times:
+        repeat.key("up", t)
+    assert repeat.delay_s == pytest.approx(0.55)
+    assert repeat.interval_s == pytest.approx(0.033)
+    assert repeat.release_after_s(0.7) == pytest.approx(0.1)          # 3 intervals, never under 0.1 s
+    repeat.key("left", 2.0)                                           # a fresh press of another key
+    assert not repeat.repeating
+    assert repeat.release_after_s(0.7) == pytest.approx(0.7)          # its first repeat is 0.55 s away
+    assert repeat.release_after_s(0.4) == pytest.approx(0.55 + 0.1)   # a delay over the deadman time is waited for
+    repeat.key("left", 2.0 + 0.2)                                     # jitter: one slow repeat
+    assert repeat.release_after_s(0.7) == pytest.approx(0.6)          # 3 x the longest recent gap
+    assert repeat.release_after_s(0.3) == pytest.approx(0.3)          # the configured time bounds it
+
+
+def test_steps_walk_the_one_two_five_series() -> None:
+    assert [step_in_series(0.05, True), step_in_series(0.05, False)] == [0.1, 0.02]
+    assert [step_in_series(0.06, True), step_in_series(0.06, False)] == [0.1, 0.05]
+    assert [step_in_series(0.2, True), step_in_series(1.0, False)] == [0.5, 0.5]
+
+
+def test_steps_stay_round_and_report_the_end_of_their_range(drive: DriveInput) -> None:
+    top = drive.envelope.top_speed_mps
+    seen = []
+    while drive.scale_steps(True):
+        seen.append(drive.speed_step_mps)
+    assert seen and max(seen) <= top / 2.0 and not drive.scale_steps(True)
+    while drive.scale_steps(False):
+        seen.append(drive.speed_step_mps)
+    assert min(seen) >= top / 100.0 - 1e-12
+    for step in seen:                                  # every one reads as 1, 2 or 5 times a power of ten
+        mantissa = f"{step:e}".split("e")[0].rstrip("0").rstrip(".")
+        assert mantissa in {"1", "2", "5"}, step
+
+
+def test_no_negative_zero() -> None:
+    assert signed(-0.0004) == "+0.00" and signed(-0.006) == "-0.01" and signed(-0.0) == "+0.00"
