@@ -152,24 +152,32 @@ def _columns(path: Path, header: str) -> list[str]:
     return columns
 
 
+def _filled(body: bytes) -> bytes:
+    """Empty cells (nothing measured yet) as nan. They sit in the first rows, before the first telemetry: only the
+    stretch of lines that has any is rewritten, not the whole hour."""
+    first = body.find(b",,")
+    if first >= 0:
+        start = body.rfind(b"\n", 0, first) + 1
+        end = body.find(b"\n", body.rfind(b",,")) + 1 or len(body)
+        stretch = body[start:end]
+        for _ in range(2):          # two passes: each one fills every other empty cell of a run of them
+            stretch = stretch.replace(b",,", b",nan,")
+        body = body[:start] + stretch + body[end:]
+    if b",\n" in body:             # an empty last cell (older recordings end with the pose)
+        body = body.replace(b",\n", b",nan\n")
+    return body
+
+
 def _parse_rows(path: Path, body: bytes, columns: list[str]) -> np.ndarray:
     """The rows as one float table (state as its code, empty cells as nan); the first bad cell named otherwise."""
     state_at = columns.index("state")
-    coded = b"\n" + body
-    for code, state in enumerate(STATES):             # ",armed," never matches inside ",disarmed,"
-        word = state.value.encode()
-        for before, after in ((b",", b","), (b",", b"\n"), (b"\n", b",")):
-            coded = coded.replace(before + word + after, before + str(code).encode() + after)
-    for _ in range(2):          # two passes: each one fills every other empty cell of a run of them
-        coded = coded.replace(b",,", b",nan,")
-    coded = coded.replace(b",\n", b",nan\n").replace(b"\n,", b"\nnan,")
-    if coded.endswith(b","):
-        coded += b"nan"
+    codes = {state.value: float(code) for code, state in enumerate(STATES)}
     try:
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")    # an empty body is said by the caller, in one line
-            table = np.loadtxt(io.BytesIO(coded), delimiter=",", ndmin=2, dtype=float)
-    except ValueError:
+            table = np.loadtxt(io.BytesIO(_filled(body)), delimiter=",", ndmin=2, dtype=float, encoding="utf-8",
+                               converters={state_at: codes.__getitem__})
+    except (ValueError, KeyError, UnicodeDecodeError):
         table = None
     if table is None or (table.size and table.shape[1] != len(columns)) or np.isinf(table).any():
         _first_bad_cell(path, body, columns, state_at)
@@ -259,16 +267,17 @@ class Replay:
     # -- derived columns --------------------------------------------------------------------------------------------
 
     def _envelope(self, envelope: Any) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-        """Target and binding limit per row: the envelope applied once per distinct request (requests hold for many
-        rows: keys, trace rows, program segments), then spread back over the rows."""
+        """Target and binding limit per row: the envelope applied once per distinct request (a request holds for many
+        rows: keys, trace rows, program segments), then spread back over the rows it holds for."""
         req = np.column_stack([self.cols["v_req_mps"], self.cols["omega_req_radps"]])
         req = np.where(np.isfinite(req), req, 0.0)    # a rejected (non-finite) request is not recorded as a number
-        pairs, inverse = np.unique(req, axis=0, return_inverse=True)
-        clamped = [envelope.clamp(float(v), float(w)) for v, w in pairs]
+        starts = np.flatnonzero(np.concatenate([[True], np.any(req[1:] != req[:-1], axis=1)]))
+        pairs, inverse = np.unique(req[starts], axis=0, return_inverse=True)
+        clamped = [envelope.clamp(float(v), float(w)) for v, w in pairs.tolist()]
         target = np.array([(c.v_mps, c.omega_radps) for c in clamped]).reshape(-1, 2)
         codes = np.array([NO_BOUND if c.bound is None else BOUNDS.index(c.bound) for c in clamped], dtype=np.int8)
-        inverse = inverse.reshape(-1)
-        return target[inverse, 0], target[inverse, 1], codes[inverse]
+        per_row = np.repeat(inverse.reshape(-1), np.diff(np.append(starts, self.rows)))
+        return target[per_row, 0], target[per_row, 1], codes[per_row]
 
     def _ramp_use(self, limits: Any) -> tuple[np.ndarray, np.ndarray]:
         """Share of the acceleration and jerk limits the recorded output used (finite differences, clipped to 1)."""

@@ -48,8 +48,10 @@ from console.ui.widgets import (
 
 RENDER_HZ = 20.0
 SPEEDS = (0.25, 0.5, 1.0, 2.0, 4.0, 8.0)
-TRAIL_S = 60.0
+TRAIL_S = 30.0
 """How much of the way before the position the top view draws after a jump (it keeps growing while playing)."""
+TRAIL_STEP_M = 0.01
+"""The top view's own spacing of trail points (console.ui.widgets.TopView.add)."""
 
 PLAYING = Binding.Group("Playing")
 MOVING = Binding.Group("Moving through the recording")
@@ -96,6 +98,17 @@ REPLAY_NOTES = (
     "A stop's cause is shown when the robot's flags at the stop name it (watchdog, fault, emergency stop); other "
     "causes are not in the recording.",
 )
+
+
+def _trail_points(poses: np.ndarray) -> np.ndarray:
+    """The poses at least TRAIL_STEP_M of way apart (the top view keeps no closer points): a jump rebuilds the
+    trail from a few hundred points instead of every row."""
+    poses = poses[~np.isnan(poses[:, 0])]
+    if poses.shape[0] < 2:
+        return poses
+    way = np.concatenate([[0.0], np.cumsum(np.hypot(np.diff(poses[:, 0]), np.diff(poses[:, 1])))])
+    keep = np.flatnonzero(np.diff(np.floor(way / TRAIL_STEP_M), prepend=-1.0) > 0)
+    return poses[keep]
 
 
 class ReplayHints(HintBar):
@@ -376,12 +389,11 @@ class ReplayScreen(Screen[None]):
                                        c["omega_radps"][span].tolist(), replay.meas_w[span].tolist()),
                                    start=first):
             plot.add(*sample, repaint=repaint and k == row)
-        source = top.source
-        for k, (x, y, heading) in enumerate(replay.pose[trail_first:row + 1].tolist(), start=trail_first):
-            if not math.isnan(x):
-                top.add((x, y, heading), source, repaint=repaint and k == row)
-        if repaint and top.pose is not None:
-            top.add(top.pose, source, repaint=True)
+        for x, y, heading in _trail_points(replay.pose[trail_first:row + 1]).tolist():
+            top.add((x, y, heading), top.source, repaint=False)
+        x, y, heading = replay.pose[row].tolist()
+        if not math.isnan(x):
+            top.add((x, y, heading), top.source, repaint=repaint)
         self._row = row
 
     # ---- every key goes to the app, which alone holds the position
