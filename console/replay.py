@@ -436,15 +436,15 @@ class Replay:
                         self._link_at(i), self._loop_stats(), self.events_to(i), 0, "replay: nothing can be armed")
 
     def _link_at(self, row: int) -> LinkStats:
-        """The link as far as the rows tell it: rows per second over the last second, telemetry seen or not."""
+        """The link as far as the rows tell it: the rows per second over the last second; the decoder counters are
+        the sidecar's for the whole run (the rows do not hold them), frame counts and ages are not recorded."""
         t = self.t
         first = int(np.searchsorted(t, t[row] - 1.0, side="left"))
         span = float(t[row] - t[first])
         rate = (row - first) / span if span > 0.0 else 0.0
-        seen = np.isfinite(self.cols["left_meas_radps"][: row + 1]).any() if row < 64 else True
         end = self.sidecar.link if self.sidecar is not None else None
         decoder = end.decoder if end is not None else DecoderCounts(0, 0, 0, 0, 0)
-        return LinkStats(self.url, rate, None, decoder, 0.0 if seen else None, row + 1, row + 1 if seen else 0)
+        return LinkStats(self.url, rate, None, decoder, None, 0, 0)
 
     def _loop_stats(self) -> LoopStats:
         if self.sidecar is not None and self.sidecar.loop is not None:
