@@ -221,6 +221,55 @@ def _profile(path: Path, sidecar: Sidecar | None, override: str | Path | None) -
                            error.allowed + " (or give a profile with --profile)") from None
 
 
+def _cause(flags: np.ndarray | None, row: int) -> StopCause | None:
+    """A stop's cause where the rows show it: the robot's fault flags at that row; None otherwise."""
+    if flags is None:
+        return None
+    return next((cause for flag, cause in FAULT_FLAGS if int(flags[row]) & flag), None)
+
+
+def _order(mark: Mark) -> tuple[int, bool]:
+    """Events by row; at one row a fault before the stop it brought."""
+    return mark.row, mark.event.kind != "fault"
+
+
+def row_events(t: np.ndarray, state: np.ndarray, flags: np.ndarray | None) -> list[Mark]:
+    """What the state and flags columns tell by themselves (no profile needed): arming, stops with the cause the
+    flags give, coming to rest, the robot's faults raised and cleared."""
+    marks: list[Mark] = []
+    stopping, stopped, armed = (STATES.index(s) for s in (SafetyState.STOPPING, SafetyState.STOPPED,
+                                                           SafetyState.ARMED))
+    if t.size and state[0] != STATES.index(SafetyState.DISARMED):
+        marks.append(Mark(0, Event(float(t[0]), f"the recording begins {STATES[state[0]].value}", "safety")))
+    for i in (np.flatnonzero(state[1:] != state[:-1]) + 1).tolist():
+        new, old = int(state[i]), int(state[i - 1])
+        if new == stopping or (new == stopped and old != stopping):
+            cause = _cause(flags, i)
+            why = cause.value if cause is not None else "cause not recorded"
+            text = f"stop ({why})" + ("; stopped at once" if new == stopped else "; ramping down")
+            marks.append(Mark(i, Event(float(t[i]), text, "stop")))
+        elif new == stopped:
+            marks.append(Mark(i, Event(float(t[i]), "at rest: stopped", "safety")))
+        elif new == armed:
+            marks.append(Mark(i, Event(float(t[i]), "armed", "safety")))
+        else:
+            marks.append(Mark(i, Event(float(t[i]), STATES[new].value, "safety")))
+    if flags is not None:
+        faults = flags & FAULT_MASK
+        if t.size and faults[0]:
+            marks.append(Mark(0, Event(float(t[0]), "the robot reports " + ", ".join(flag_names(int(faults[0]))),
+                                       "fault")))
+        for i in (np.flatnonzero(faults[1:] != faults[:-1]) + 1).tolist():
+            raised = int(faults[i] & ~faults[i - 1])
+            if raised:
+                marks.append(Mark(i, Event(float(t[i]), "the robot reports " + ", ".join(flag_names(raised)),
+                                           "fault")))
+            else:
+                marks.append(Mark(i, Event(float(t[i]), "the robot clears " + ", ".join(
+                    flag_names(int(faults[i - 1]))), "safety")))
+    return marks
+
+
 class Replay:
     """A recording ready to be shown row by row. Build it with `open_replay`."""
 
@@ -312,38 +361,9 @@ class Replay:
     # -- events ----------------------------------------------------------------------------------------------------
 
     def _find_events(self) -> tuple[Mark, ...]:
-        t, state = self.t, self.state
+        t = self.t
         marks = [Mark(0, Event(float(t[0]), f"in this recording: {note}", "record")) for note in self.missing]
-        stopping, stopped, armed = (STATES.index(s) for s in (SafetyState.STOPPING, SafetyState.STOPPED,
-                                                               SafetyState.ARMED))
-        if self.rows and state[0] != STATES.index(SafetyState.DISARMED):
-            marks.append(Mark(0, Event(float(t[0]), f"the recording begins {STATES[state[0]].value}", "safety")))
-        for i in (np.flatnonzero(state[1:] != state[:-1]) + 1).tolist():
-            new, old = int(state[i]), int(state[i - 1])
-            if new == stopping or (new == stopped and old != stopping):
-                cause = self.cause_at(i)
-                why = cause.value if cause is not None else "cause not recorded"
-                text = f"stop ({why})" + ("; stopped at once" if new == stopped else "; ramping down")
-                marks.append(Mark(i, Event(float(t[i]), text, "stop")))
-            elif new == stopped:
-                marks.append(Mark(i, Event(float(t[i]), "at rest: stopped", "safety")))
-            elif new == armed:
-                marks.append(Mark(i, Event(float(t[i]), "armed", "safety")))
-            else:
-                marks.append(Mark(i, Event(float(t[i]), STATES[new].value, "safety")))
-        if self.flags is not None:
-            faults = self.flags & FAULT_MASK
-            for i in (np.flatnonzero(faults[1:] != faults[:-1]) + 1).tolist():
-                raised = int(faults[i] & ~faults[i - 1])
-                if raised:
-                    marks.append(Mark(i, Event(float(t[i]), "the robot reports " + ", ".join(flag_names(raised)),
-                                               "fault")))
-                else:
-                    marks.append(Mark(i, Event(float(t[i]), "the robot clears " + ", ".join(
-                        flag_names(int(faults[i - 1]))), "safety")))
-            if faults[0]:
-                marks.append(Mark(0, Event(float(t[0]), "the robot reports " + ", ".join(flag_names(int(faults[0]))),
-                                           "fault")))
+        marks += row_events(t, self.state, self.flags)
         marks += self._limit_changes()
         end = self.rows - 1
         if self.sidecar is not None and self.sidecar.write_error:
@@ -351,8 +371,7 @@ class Replay:
         if self.sidecar is not None and self.sidecar.dropped_rows:
             marks.append(Mark(end, Event(self.end_s, f"{self.sidecar.dropped_rows} rows dropped by the recorder "
                                                      "(gaps in time)", "record")))
-        marks.sort(key=lambda m: (m.row, m.event.kind != "fault"))
-        return tuple(marks)
+        return tuple(sorted(marks, key=_order))
 
     def _limit_changes(self) -> list[Mark]:
         """A change of the binding limit, logged as the loop logs it: once the new limit has held for
@@ -372,11 +391,7 @@ class Replay:
         return marks
 
     def cause_at(self, row: int) -> StopCause | None:
-        """A stop's cause where the rows show it: the robot's fault flags at that row; None otherwise."""
-        if self.flags is None:
-            return None
-        flags = int(self.flags[row])
-        return next((cause for flag, cause in FAULT_FLAGS if flags & flag), None)
+        return _cause(self.flags, row)
 
     # -- navigation ------------------------------------------------------------------------------------------------
 
@@ -452,12 +467,12 @@ class Replay:
         return LoopStats(self.period_s, self.rows, 0, 0.0, 0.0, 0.0, 0.0)
 
 
-def open_replay(path: str | Path, profile: str | Path | None = None) -> Replay:
-    """Read, check and index a recording; the profile comes from the sidecar unless `profile` (a TOML path) is
-    given. Raises RecordingError / ProfileError (one line, exit code 2)."""
+def read_rows(path: str | Path) -> tuple[dict[str, np.ndarray], list[str]]:
+    """A recording's columns by name (state as its code in STATES, flags as integers where recorded) and what the
+    file lacks; RecordingError (one line, exit code 2) for anything that is not a recording."""
     path = Path(path)
     raw = read_input(path, "a CSV recording")
-    head, newline, body = raw.partition(b"\n")
+    head, _, body = raw.partition(b"\n")
     del raw
     try:
         header = head.decode("utf-8").strip()
@@ -473,18 +488,23 @@ def open_replay(path: str | Path, profile: str | Path | None = None) -> Replay:
     if table.shape[0] == 0:
         raise _fail(path, "rows", 0, "at least one whole data row after the header (nothing was recorded)")
     cols = {name: table[:, k].copy() for k, name in enumerate(columns)}
+    del table
     t = cols["t_s"]
     bad = np.flatnonzero(~np.isfinite(t) | (np.diff(t, prepend=-np.inf) <= 0.0))
     if bad.size:
         raise _fail(path, f"line {int(bad[0]) + 2}, t_s", float(t[bad[0]]), "finite times, strictly increasing")
-    bad_state = np.flatnonzero(~np.isin(cols["state"], np.arange(len(STATES))))
-    if bad_state.size:
-        raise _fail(path, f"line {int(bad_state[0]) + 2}, state", float(cols["state"][bad_state[0]]),
-                    "one of " + ", ".join(s.value for s in STATES))
-    if FLAGS_COLUMN not in cols:
-        missing.append("no flags column (a recording from an older version): robot faults and flags are not shown")
-    elif not np.all(np.isfinite(cols[FLAGS_COLUMN])):
+    if FLAGS_COLUMN in cols:
         cols[FLAGS_COLUMN] = np.nan_to_num(cols[FLAGS_COLUMN])
+    else:
+        missing.append("no flags column (a recording from an older version): robot faults and flags are not shown")
+    return cols, missing
+
+
+def open_replay(path: str | Path, profile: str | Path | None = None) -> Replay:
+    """Read, check and index a recording; the profile comes from the sidecar unless `profile` (a TOML path) is
+    given. Raises RecordingError / ProfileError (one line, exit code 2)."""
+    path = Path(path)
+    cols, missing = read_rows(path)
     sidecar = read_sidecar(path)
     chosen = _profile(path, sidecar, profile)
     if sidecar is None:
@@ -495,10 +515,9 @@ def open_replay(path: str | Path, profile: str | Path | None = None) -> Replay:
         source = f"the sidecar ({sidecar.profile_name or chosen.name})" if sidecar is not None else ""
     if not np.isfinite(cols["left_meas_radps"]).any():
         missing.append("no measured wheel rates (no telemetry was received)")
-    gaps = int(np.count_nonzero(np.diff(t) > 1.5 / chosen.link.rate_hz))
+    gaps = int(np.count_nonzero(np.diff(cols["t_s"]) > 1.5 / chosen.link.rate_hz))
     if gaps:
         missing.append(f"{gaps} gaps in time longer than 1.5 periods (rows dropped, or another loop rate)")
-    del table
     return Replay(path, chosen, source, cols, sidecar, missing)
 
 
@@ -508,7 +527,14 @@ def replay_command(path: str | Path, t_s: float) -> str:
     return f"diffdeck replay {shlex.quote(str(path))} --at {at:.3f}"
 
 
-def notable_moments(replay: Replay) -> list[tuple[float, str, str]]:
-    """(time, what, replay command) for every stop and fault in the recording, the first MOMENTS_LISTED of them."""
-    return [(m.event.t_s, m.event.text, replay_command(replay.path, m.event.t_s))
-            for m in replay.marks if m.event.kind in MOMENT_KINDS][:MOMENTS_LISTED]
+def notable_moments(path: str | Path) -> list[tuple[float, str, str]]:
+    """(time, what, replay command) for the stops and faults of a recording, the first MOMENTS_LISTED of them, for
+    `report` to print. Needs no profile; a file replay cannot read has none (the report says its own line)."""
+    try:
+        cols, _ = read_rows(path)
+    except InputError:
+        return []
+    flags = cols[FLAGS_COLUMN].astype(np.int64) if FLAGS_COLUMN in cols else None
+    marks = sorted(row_events(cols["t_s"], cols["state"].astype(np.int8), flags), key=_order)
+    return [(m.event.t_s, m.event.text, replay_command(path, m.event.t_s))
+            for m in marks if m.event.kind in MOMENT_KINDS][:MOMENTS_LISTED]

@@ -201,7 +201,7 @@ def test_at_outside_the_recording_is_one_line(scene_recording: Path, capsys) -> 
 def test_report_commands_open_the_replay_on_the_moment(scene_recording: Path) -> None:
     """Each printed command's --at lands on the row of the moment it names (its time rounded up to the ms)."""
     replay = open_replay(scene_recording)
-    moments = notable_moments(replay)
+    moments = notable_moments(scene_recording)
     assert [what for _, what, _ in moments][:1] == [_events(replay, "stop")[0][1]]
     assert len(moments) == 3          # the operator stop, the fault, the stop it brought
     for t_s, _, command in moments:
@@ -216,3 +216,13 @@ def test_a_recording_with_a_single_row_opens(scene_recording: Path, tmp_path: Pa
     short.write_text("\n".join(lines) + "\n", encoding="utf-8")
     replay = open_replay(short, WREN)
     assert replay.rows == 1 and replay.snapshot(0).state is SafetyState.DISARMED
+
+
+def test_report_moments_need_no_sidecar_and_skip_what_is_not_a_recording(scene_recording: Path,
+                                                                         tmp_path: Path) -> None:
+    alone = tmp_path / "alone.csv"
+    shutil.copy(scene_recording, alone)                      # no sidecar: no profile, the moments are still there
+    assert [what for _, what, _ in notable_moments(alone)] == [what for _, what, _ in notable_moments(scene_recording)]
+    trace = tmp_path / "trace.csv"
+    trace.write_text("t_s,v_mps,omega_radps\n0.0,0.4,0.0\n", encoding="utf-8")
+    assert notable_moments(trace) == []
