@@ -226,3 +226,12 @@ def test_report_moments_need_no_sidecar_and_skip_what_is_not_a_recording(scene_r
     trace = tmp_path / "trace.csv"
     trace.write_text("t_s,v_mps,omega_radps\n0.0,0.4,0.0\n", encoding="utf-8")
     assert notable_moments(trace) == []
+
+
+def test_report_prints_the_replay_command_for_each_stop_and_fault(scene_recording: Path, tmp_path: Path,
+                                                                   capsys) -> None:
+    assert main(["report", str(scene_recording), "-o", str(tmp_path / "report")]) == 0
+    out = capsys.readouterr().out
+    lines = [line for line in out.splitlines() if "diffdeck replay" in line]
+    assert len(lines) == 3 and lines[0].startswith(f"at {SCENE.stop_s + PERIOD_S:.2f} s stop")
+    assert lines[0].endswith(f"diffdeck replay {scene_recording} --at {SCENE.stop_s + PERIOD_S:.3f}")
