@@ -422,8 +422,11 @@ class Replay:
         """Row `row` as the loop's snapshot would have shown it (what was not recorded: see the module docstring)."""
         c, i = self.cols, row
 
+        def value_at(name: str, row: int) -> float:
+            return float(c[name][row])
+
         def value(name: str) -> float:
-            return float(c[name][i])
+            return value_at(name, i)
 
         def measured(name: str) -> float | None:
             v = float(c[name][i])
@@ -438,7 +441,7 @@ class Replay:
         shaped = Shaped(v_req, w_req, target_v, target_w, v, w, 0.0, 0.0, 0.0, 0.0, left, right,
                         None if bound == NO_BOUND else BOUNDS[bound], float(self.accel_use[i]),
                         float(self.jerk_use[i]), not (math.isfinite(v_req) and math.isfinite(w_req)), None, False,
-                        v == target_v and w == target_w)
+                        i > 0 and v == value_at("v_mps", i - 1) and w == value_at("omega_radps", i - 1))
         cause = None
         if state in (SafetyState.STOPPING, SafetyState.STOPPED):
             start = self.next_mark(i + 1, "stop", back=True)
