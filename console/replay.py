@@ -1,8 +1,9 @@
 """A session recording (CSV + JSON sidecar, console/record.py) opened for replay: numpy columns, the events found in
 them, and row i turned into the Snapshot the drive screen's panels read.
 
-Reading is vectorized (an hour at 100 Hz is 360,000 rows: one numpy parse, then array arithmetic); seeking is a
-binary search on the time column, and a snapshot is built only for the row on screen. What the rows do not hold is
+Reading is vectorized (an hour at 100 Hz is 360,000 rows): the columns the events and the position bar need are
+converted for every row on opening, the others by blocks the first time a row of the block is shown (`Rows`);
+seeking is a binary search on the time column, and a snapshot is built only for the row on screen. What the rows do not hold is
 derived where the profile allows it and said where it does not:
 - the envelope target and the binding limit: the profile's envelope applied to the recorded request (shaping), the
   same envelope the loop used when the profile is the one in the sidecar; `--profile` shows what another would do;
@@ -50,8 +51,11 @@ NO_BOUND = len(BOUNDS)
 """Bound codes in the index: position in BOUNDS, NO_BOUND where the request passes the envelope."""
 EVENTS_SHOWN = 50
 """Events handed to the event log with each snapshot: the newest this many up to the row on screen."""
-NUMERIC = ("t_s", "v_req_mps", "omega_req_radps", "v_mps", "omega_radps", "left_cmd_radps", "right_cmd_radps",
-           "left_meas_radps", "right_meas_radps")
+BLOCK_ROWS = 4096
+"""Rows parsed together the first time one of them is shown (41 s at 100 Hz: a jump needs one or two blocks)."""
+INDEX = ("t_s", "v_req_mps", "omega_req_radps", "state")
+"""Columns parsed for every row on opening: the events, the position bar and the binding limit need them all."""
+MEASURED = ("left_meas_radps", "right_meas_radps")
 MOMENT_KINDS = ("stop", "fault")
 """What `notable_moments` lists (the report prints a replay command for each)."""
 MOMENTS_LISTED = 20
@@ -168,27 +172,31 @@ def _filled(body: bytes) -> bytes:
     return body
 
 
-def _parse_rows(path: Path, body: bytes, columns: list[str]) -> np.ndarray:
-    """The rows as one float table (state as its code, empty cells as nan); the first bad cell named otherwise."""
+def _parse_rows(path: Path, body: bytes, columns: list[str], names: tuple[str, ...] | None = None,
+                first_line: int = 2) -> np.ndarray:
+    """The rows' columns `names` (all by default) as one float table (state as its code, empty cells as nan); the
+    first bad cell named otherwise (`first_line`: the file's line number of the first row in `body`)."""
+    names = tuple(columns) if names is None else names
+    use = [columns.index(name) for name in names]
     state_at = columns.index("state")
     codes = {state.value: float(code) for code, state in enumerate(STATES)}
     try:
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")    # an empty body is said by the caller, in one line
             table = np.loadtxt(io.BytesIO(_filled(body)), delimiter=",", ndmin=2, dtype=float, encoding="utf-8",
-                               converters={state_at: codes.__getitem__})
+                               usecols=use, converters={state_at: codes.__getitem__} if state_at in use else None)
     except (ValueError, KeyError, UnicodeDecodeError):
         table = None
-    if table is None or (table.size and table.shape[1] != len(columns)) or np.isinf(table).any():
-        _first_bad_cell(path, body, columns, state_at)
+    if table is None or (table.size and table.shape[1] != len(use)) or np.isinf(table).any():
+        _first_bad_cell(path, body, columns, state_at, first_line)
     assert table is not None
     return table
 
 
-def _first_bad_cell(path: Path, body: bytes, columns: list[str], state_at: int) -> None:
+def _first_bad_cell(path: Path, body: bytes, columns: list[str], state_at: int, first_line: int) -> None:
     """Name the first line, field and value the fast reader refused (the slow way, only once it has refused)."""
     words = {state.value for state in STATES}
-    for number, raw in enumerate(body.split(b"\n"), start=2):
+    for number, raw in enumerate(body.split(b"\n"), start=first_line):
         if not raw.strip():
             continue
         fields = raw.decode("utf-8", "replace").rstrip("\r").split(",")
@@ -203,6 +211,47 @@ def _first_bad_cell(path: Path, body: bytes, columns: list[str], state_at: int) 
                 raise _fail(path, f"line {number}, {columns[index]}", cell[:40],
                             "a finite number, or empty where nothing was measured")
     raise _fail(path, "file", str(path), "a CSV recording numpy can read (this one it cannot; please report it)")
+
+
+class Rows:
+    """A recording's rows: the index columns (time, state, flags, request; the measured rates too where the pose
+    must be dead-reckoned) parsed for every row at once, the others by blocks of BLOCK_ROWS the first time a row of
+    the block is shown. Converting text to numbers is most of the cost of opening an hour: this way the first frame
+    waits for a third of it, and a jump for a block or two. A bad cell in a block is found when the block is
+    first shown (RecordingError, one line)."""
+
+    def __init__(self, path: Path, columns: list[str], body: bytes, index: tuple[str, ...]) -> None:
+        self.path, self.columns, self._body = path, columns, body
+        ends = np.flatnonzero(np.frombuffer(body, dtype=np.uint8) == 10)
+        self._starts = np.concatenate([[0], ends + 1])
+        self.count = int(ends.size)
+        table = _parse_rows(path, body, columns, index)
+        if table.shape[0] != self.count:       # loadtxt skips blank lines: say where the first one is
+            line = int(np.searchsorted(ends, body.find(b"\n\n"))) + 3
+            raise _fail(path, f"line {line}", "empty", "a row on every line")
+        self.cols = {name: np.full(self.count, np.nan) for name in columns}
+        for k, name in enumerate(index):
+            self.cols[name] = table[:, k].copy()
+        self._lazy = tuple(name for name in columns if name not in index)
+        self._parsed = np.zeros((self.count + BLOCK_ROWS - 1) // BLOCK_ROWS, dtype=bool)
+        if not self._lazy:
+            self._parsed[:] = True
+
+    def ensure(self, first: int, last: int) -> None:
+        """Rows first..last (inclusive) have every column."""
+        for block in range(max(first, 0) // BLOCK_ROWS, min(last, self.count - 1) // BLOCK_ROWS + 1):
+            if not self._parsed[block]:
+                a, z = block * BLOCK_ROWS, min((block + 1) * BLOCK_ROWS, self.count)
+                chunk = self._body[self._starts[a]:self._starts[z]]
+                table = _parse_rows(self.path, chunk, self.columns, self._lazy, first_line=a + 2)
+                for k, name in enumerate(self._lazy):
+                    self.cols[name][a:z] = table[:, k]
+                self._parsed[block] = True
+
+    def column(self, name: str, first: int, last: int) -> np.ndarray:
+        """Rows first..last (inclusive) of one column."""
+        self.ensure(first, last)
+        return self.cols[name][first:last + 1]
 
 
 def _profile(path: Path, sidecar: Sidecar | None, override: str | Path | None) -> Profile:
@@ -226,6 +275,11 @@ def _cause(flags: np.ndarray | None, row: int) -> StopCause | None:
     if flags is None:
         return None
     return next((cause for flag, cause in FAULT_FLAGS if int(flags[row]) & flag), None)
+
+
+def _share(used: float) -> float:
+    """A share of a limit for the panel's bar: 0 to 1 (0 where it cannot be worked out)."""
+    return min(used, 1.0) if math.isfinite(used) else 0.0
 
 
 def _order(mark: Mark) -> tuple[int, bool]:
@@ -273,31 +327,25 @@ def row_events(t: np.ndarray, state: np.ndarray, flags: np.ndarray | None) -> li
 class Replay:
     """A recording ready to be shown row by row. Build it with `open_replay`."""
 
-    def __init__(self, path: Path, profile: Profile, profile_source: str, table: dict[str, np.ndarray],
-                 sidecar: Sidecar | None, missing: list[str]) -> None:
+    def __init__(self, path: Path, profile: Profile, profile_source: str, rows: Rows, sidecar: Sidecar | None,
+                 missing: list[str]) -> None:
         self.path = path
         self.name = path.name
         self.profile = profile
         self.profile_source = profile_source
         self.sidecar = sidecar
         self.url = (sidecar.link_url if sidecar is not None and sidecar.link_url else "not recorded")
-        self.t = table["t_s"]
-        self.rows = int(self.t.size)
+        self.source = rows
+        cols = rows.cols
+        self.t = cols["t_s"]
+        self.rows = rows.count
         self.period_s = 1.0 / profile.link.rate_hz
-        self.cols = table
-        self.state = table["state"].astype(np.int8)
-        self.flags = table[FLAGS_COLUMN].astype(np.int64) if FLAGS_COLUMN in table else None
-        geometry, envelope, limits = profile.geometry, profile.envelope, profile.limits
-        left, right = table["left_meas_radps"], table["right_meas_radps"]
-        body = geometry.to_body(left, right)        # type: ignore[arg-type]  # arithmetic only: element-wise on arrays
-        self.meas_v, self.meas_w = np.asarray(body[0], dtype=float), np.asarray(body[1], dtype=float)
-        self.target_v, self.target_w, self.bound = self._envelope(envelope)
-        self.accel_use, self.jerk_use = self._ramp_use(limits)
-        self.true_pose = all(name in table for name in POSE_COLUMNS) and bool(np.isfinite(table["x_m"]).any())
-        if self.true_pose:
-            self.pose = np.column_stack([table[name] for name in POSE_COLUMNS])
-        else:
-            self.pose = self._dead_reckoning()
+        self.state = cols["state"].astype(np.int8)
+        self.flags = cols[FLAGS_COLUMN].astype(np.int64) if FLAGS_COLUMN in cols else None
+        self.target_v, self.target_w, self.bound = self._envelope(profile.envelope)
+        self.true_pose = all(name in cols for name in POSE_COLUMNS)
+        if not self.true_pose:
+            self._reckoned = self._dead_reckoning()
             missing.append("no true pose recorded: the top view shows dead reckoning from the measured wheel rates")
         self.missing = tuple(missing)
         self.marks = self._find_events()
@@ -318,7 +366,7 @@ class Replay:
     def _envelope(self, envelope: Any) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         """Target and binding limit per row: the envelope applied once per distinct request (a request holds for many
         rows: keys, trace rows, program segments), then spread back over the rows it holds for."""
-        req = np.column_stack([self.cols["v_req_mps"], self.cols["omega_req_radps"]])
+        req = np.column_stack([self.source.cols["v_req_mps"], self.source.cols["omega_req_radps"]])
         req = np.where(np.isfinite(req), req, 0.0)    # a rejected (non-finite) request is not recorded as a number
         starts = np.flatnonzero(np.concatenate([[True], np.any(req[1:] != req[:-1], axis=1)]))
         pairs, inverse = np.unique(req[starts], axis=0, return_inverse=True)
@@ -328,18 +376,35 @@ class Replay:
         per_row = np.repeat(inverse.reshape(-1), np.diff(np.append(starts, self.rows)))
         return target[per_row, 0], target[per_row, 1], codes[per_row]
 
-    def _ramp_use(self, limits: Any) -> tuple[np.ndarray, np.ndarray]:
-        """Share of the acceleration and jerk limits the recorded output used (finite differences, clipped to 1)."""
-        t, v, w = self.t, self.cols["v_mps"], self.cols["omega_radps"]
-        if t.size < 3:
-            return np.zeros(t.size), np.zeros(t.size)
+    def _ramp_use(self, row: int) -> tuple[float, float]:
+        """Share of the acceleration and jerk limits the recorded output used at `row`: central differences over
+        the rows around it (clipped to 1; 0 where there are too few rows)."""
+        first, last = max(row - 2, 0), min(row + 2, self.rows - 1)
+        if last - first < 2:
+            return 0.0, 0.0
+        limits = self.profile.limits
+        t = self.t[first:last + 1]
+        v, w = (self.source.column(name, first, last) for name in ("v_mps", "omega_radps"))
         a, alpha = np.gradient(v, t), np.gradient(w, t)
-        speeding_up = a * v > 0.0
-        accel = np.maximum(np.abs(a) / np.where(speeding_up, limits.accel_mps2, limits.decel_mps2),
-                           np.abs(alpha) / limits.turn_accel_radps2)
-        jerk = np.maximum(np.abs(np.gradient(a, t)) / limits.jerk_mps3,
-                          np.abs(np.gradient(alpha, t)) / limits.turn_jerk_radps3)
-        return np.clip(np.nan_to_num(accel), 0.0, 1.0), np.clip(np.nan_to_num(jerk), 0.0, 1.0)
+        k = row - first
+        speeding_up = a[k] * v[k] > 0.0
+        accel = max(abs(a[k]) / (limits.accel_mps2 if speeding_up else limits.decel_mps2),
+                    abs(alpha[k]) / limits.turn_accel_radps2)
+        jerk = max(abs(np.gradient(a, t)[k]) / limits.jerk_mps3,
+                   abs(np.gradient(alpha, t)[k]) / limits.turn_jerk_radps3)
+        return _share(float(accel)), _share(float(jerk))
+
+    def measured_body(self, first: int, last: int) -> tuple[np.ndarray, np.ndarray]:
+        """Body speed and turn rate from the measured wheel rates, rows first..last (nan before any telemetry)."""
+        left, right = (self.source.column(name, first, last) for name in MEASURED)
+        body = self.profile.geometry.to_body(left, right)   # type: ignore[arg-type]  # arithmetic: element-wise
+        return np.asarray(body[0], dtype=float), np.asarray(body[1], dtype=float)
+
+    def poses(self, first: int, last: int) -> np.ndarray:
+        """The pose (x, y, heading) of rows first..last: recorded, or dead-reckoned (nan before any measurement)."""
+        if self.true_pose:
+            return np.column_stack([self.source.column(name, first, last) for name in POSE_COLUMNS])
+        return self._reckoned[first:last + 1]
 
     def _dead_reckoning(self) -> np.ndarray:
         """Pose per row from the measured wheel rates, arc by arc, from (0, 0, 0) at the first measurement."""
@@ -347,7 +412,8 @@ class Replay:
         dt = np.diff(self.t, prepend=self.t[0])
         x = y = heading = 0.0
         started = False
-        for i, (v, w, step) in enumerate(zip(self.meas_v.tolist(), self.meas_w.tolist(), dt.tolist())):
+        meas_v, meas_w = self.measured_body(0, self.rows - 1)
+        for i, (v, w, step) in enumerate(zip(meas_v.tolist(), meas_w.tolist(), dt.tolist())):
             if math.isnan(v) or math.isnan(w):
                 if not started:
                     continue
@@ -420,7 +486,9 @@ class Replay:
 
     def snapshot(self, row: int) -> Snapshot:
         """Row `row` as the loop's snapshot would have shown it (what was not recorded: see the module docstring)."""
-        c, i = self.cols, row
+        i = row
+        self.source.ensure(i - 2, i + 2)
+        c = self.source.cols
 
         def value_at(name: str, row: int) -> float:
             return float(c[name][row])
@@ -438,15 +506,16 @@ class Replay:
         v_req, w_req = value("v_req_mps"), value("omega_req_radps")
         target_v, target_w = float(self.target_v[i]), float(self.target_w[i])
         left, right = value("left_cmd_radps"), value("right_cmd_radps")
+        accel_use, jerk_use = self._ramp_use(i)
         shaped = Shaped(v_req, w_req, target_v, target_w, v, w, 0.0, 0.0, 0.0, 0.0, left, right,
-                        None if bound == NO_BOUND else BOUNDS[bound], float(self.accel_use[i]),
-                        float(self.jerk_use[i]), not (math.isfinite(v_req) and math.isfinite(w_req)), None, False,
+                        None if bound == NO_BOUND else BOUNDS[bound], accel_use, jerk_use,
+                        not (math.isfinite(v_req) and math.isfinite(w_req)), None, False,
                         i > 0 and v == value_at("v_mps", i - 1) and w == value_at("omega_radps", i - 1))
         cause = None
         if state in (SafetyState.STOPPING, SafetyState.STOPPED):
             start = self.next_mark(i + 1, "stop", back=True)
             cause = self.cause_at(start) if start is not None else None
-        pose = self.pose[i]
+        pose = self.poses(i, i)[0]
         cmd = self.profile.units.to_motor(left, right)
         return Snapshot(float(self.t[i]), state, cause, shaped, cmd[0], cmd[1], measured("left_meas_radps"),
                         measured("right_meas_radps"), None, int(self.flags[i]) if self.flags is not None else 0,
@@ -470,9 +539,10 @@ class Replay:
         return LoopStats(self.period_s, self.rows, 0, 0.0, 0.0, 0.0, 0.0)
 
 
-def read_rows(path: str | Path) -> tuple[dict[str, np.ndarray], list[str]]:
-    """A recording's columns by name (state as its code in STATES, flags as integers where recorded) and what the
-    file lacks; RecordingError (one line, exit code 2) for anything that is not a recording."""
+def read_rows(path: str | Path, *, measured: bool = False) -> tuple[Rows, list[str]]:
+    """A recording's rows (the index columns parsed, state as its code in STATES, flags as integers where
+    recorded; `measured` or no pose columns: the measured rates too) and what the file lacks; RecordingError (one
+    line, exit code 2) for anything that is not a recording."""
     path = Path(path)
     raw = read_input(path, "a CSV recording")
     head, _, body = raw.partition(b"\n")
@@ -486,28 +556,28 @@ def read_rows(path: str | Path) -> tuple[dict[str, np.ndarray], list[str]]:
     if body and not body.endswith(b"\n"):           # a killed run: the last line may be half written
         body = body[: body.rfind(b"\n") + 1]
         missing.append("the last line was cut off (a killed run?): it is left out")
-    table = _parse_rows(path, body, columns) if body.strip() else np.empty((0, len(columns)))
-    del body
-    if table.shape[0] == 0:
+    if not body.strip():
         raise _fail(path, "rows", 0, "at least one whole data row after the header (nothing was recorded)")
-    cols = {name: table[:, k].copy() for k, name in enumerate(columns)}
-    del table
-    t = cols["t_s"]
+    index = INDEX + ((FLAGS_COLUMN,) if FLAGS_COLUMN in columns else ())
+    if measured or not all(name in columns for name in POSE_COLUMNS):
+        index += MEASURED
+    rows = Rows(path, columns, body, index)
+    t = rows.cols["t_s"]
     bad = np.flatnonzero(~np.isfinite(t) | (np.diff(t, prepend=-np.inf) <= 0.0))
     if bad.size:
         raise _fail(path, f"line {int(bad[0]) + 2}, t_s", float(t[bad[0]]), "finite times, strictly increasing")
-    if FLAGS_COLUMN in cols:
-        cols[FLAGS_COLUMN] = np.nan_to_num(cols[FLAGS_COLUMN])
+    if FLAGS_COLUMN in columns:
+        rows.cols[FLAGS_COLUMN] = np.nan_to_num(rows.cols[FLAGS_COLUMN])
     else:
         missing.append("no flags column (a recording from an older version): robot faults and flags are not shown")
-    return cols, missing
+    return rows, missing
 
 
 def open_replay(path: str | Path, profile: str | Path | None = None) -> Replay:
     """Read, check and index a recording; the profile comes from the sidecar unless `profile` (a TOML path) is
     given. Raises RecordingError / ProfileError (one line, exit code 2)."""
     path = Path(path)
-    cols, missing = read_rows(path)
+    rows, missing = read_rows(path)
     sidecar = read_sidecar(path)
     chosen = _profile(path, sidecar, profile)
     if sidecar is None:
@@ -516,12 +586,14 @@ def open_replay(path: str | Path, profile: str | Path | None = None) -> Replay:
         source = f"--profile {profile}"
     else:
         source = f"the sidecar ({sidecar.profile_name or chosen.name})" if sidecar is not None else ""
-    if not np.isfinite(cols["left_meas_radps"]).any():
+    link = sidecar.link if sidecar is not None else None
+    if (link is not None and link.telemetry_received == 0) or (
+            MEASURED[0] in rows.cols and not np.isfinite(rows.cols[MEASURED[0]]).any() and not rows._lazy):
         missing.append("no measured wheel rates (no telemetry was received)")
-    gaps = int(np.count_nonzero(np.diff(cols["t_s"]) > 1.5 / chosen.link.rate_hz))
+    gaps = int(np.count_nonzero(np.diff(rows.cols["t_s"]) > 1.5 / chosen.link.rate_hz))
     if gaps:
         missing.append(f"{gaps} gaps in time longer than 1.5 periods (rows dropped, or another loop rate)")
-    return Replay(path, chosen, source, cols, sidecar, missing)
+    return Replay(path, chosen, source, rows, sidecar, missing)
 
 
 def replay_command(path: str | Path, t_s: float) -> str:
@@ -534,9 +606,10 @@ def notable_moments(path: str | Path) -> list[tuple[float, str, str]]:
     """(time, what, replay command) for the stops and faults of a recording, the first MOMENTS_LISTED of them, for
     `report` to print. Needs no profile; a file replay cannot read has none (the report says its own line)."""
     try:
-        cols, _ = read_rows(path)
+        rows, _ = read_rows(path)
     except InputError:
         return []
+    cols = rows.cols
     flags = cols[FLAGS_COLUMN].astype(np.int64) if FLAGS_COLUMN in cols else None
     marks = sorted(row_events(cols["t_s"], cols["state"].astype(np.int8), flags), key=_order)
     return [(m.event.t_s, m.event.text, replay_command(path, m.event.t_s))

@@ -25,7 +25,7 @@ from textual.widgets import Input, Static
 from console.core.step import Event, Snapshot
 from console.files import PLAIN_NUMBER
 from console.protocol import flag_names
-from console.replay import Replay
+from console.replay import RecordingError, Replay
 from console.ui.app import HEAVY_PERIOD_S, DriveApp
 from console.ui.keys import key_rows
 from console.ui.rows import Rows
@@ -355,8 +355,9 @@ class ReplayScreen(Screen[None]):
         self.banner.show(snap.state.value, cause, f"REPLAY {replay.name} · read-only")
         self.link_panel.show(snap)
         self.limit_panel.show(snap)
-        meas_v = None if math.isnan(replay.meas_v[row]) else float(replay.meas_v[row])
-        meas_w = None if math.isnan(replay.meas_w[row]) else float(replay.meas_w[row])
+        meas_v = meas_w = None
+        if snap.left_meas_radps is not None and snap.right_meas_radps is not None:
+            meas_v, meas_w = replay.profile.geometry.to_body(snap.left_meas_radps, snap.right_meas_radps)
         reverse_bound, forward_bound = envelope.speed_bounds_at(s.omega_radps)
         self.speed_gauge.show(s.v_req_mps, s.v_target_mps, s.v_mps, meas_v, -reverse_bound, forward_bound)
         turn_bound = envelope.max_turn_rate_at(s.v_mps)
@@ -382,16 +383,15 @@ class ReplayScreen(Screen[None]):
             first = trail_first = self._row + 1
         if repaint:
             self._heavy_t_s = float(t[row])
-        c = replay.cols
-        span = slice(first, row + 1)
-        for k, sample in enumerate(zip(t[span].tolist(), c["v_req_mps"][span].tolist(), c["v_mps"][span].tolist(),
-                                       replay.meas_v[span].tolist(), c["omega_req_radps"][span].tolist(),
-                                       c["omega_radps"][span].tolist(), replay.meas_w[span].tolist()),
-                                   start=first):
+        speed, turn = replay.measured_body(first, row)
+        columns = [replay.source.column(name, first, row).tolist()
+                   for name in ("v_req_mps", "v_mps", "omega_req_radps", "omega_radps")]
+        for k, sample in enumerate(zip(t[first:row + 1].tolist(), columns[0], columns[1], speed.tolist(), columns[2],
+                                       columns[3], turn.tolist()), start=first):
             plot.add(*sample, repaint=repaint and k == row)
-        for x, y, heading in _trail_points(replay.pose[trail_first:row + 1]).tolist():
+        for x, y, heading in _trail_points(replay.poses(trail_first, row)).tolist():
             top.add((x, y, heading), top.source, repaint=False)
-        x, y, heading = replay.pose[row].tolist()
+        x, y, heading = replay.poses(row, row)[0].tolist()
         if not math.isnan(x):
             top.add((x, y, heading), top.source, repaint=repaint)
         self._row = row
@@ -452,6 +452,7 @@ class ReplayApp(App[int]):
         self.last_snapshot: Snapshot | None = None
         self._wall: float | None = None
         self.ended_by: int | None = None      # SIGTERM / SIGHUP (console.ui.signals)
+        self.error: RecordingError | None = None
 
     def on_mount(self) -> None:
         exit_on_ending_signals(self)
@@ -483,8 +484,13 @@ class ReplayApp(App[int]):
         self._show()
 
     def _show(self) -> None:
-        if self.replay_screen.ready:
+        if not self.replay_screen.ready:
+            return
+        try:
             self.last_snapshot = self.replay_screen.show(self.row, self.playing, self.speed, self.note)
+        except RecordingError as error:     # a bad cell in rows shown for the first time: the verb says it
+            self.error = error
+            self.exit(2)
 
     def seek_row(self, row: int, note: str = "") -> None:
         """Put the position on a row (clipped to the recording) and show it at once."""

@@ -5,7 +5,12 @@ the screen opens: a file that is not a recording is one line and exit code 2. Wh
 version's columns, a killed run's missing sidecar and cut last line) is said on the screen's first event lines and
 in the title, and the rest replays.
 
-Exit codes: 0 closed with q; 2 bad input (not a recording, a bad sidecar or profile, --at outside the recording).
+The rows are converted to numbers as they are first shown (console/replay.py, `Rows`): a bad cell in the rows of the
+first frame is found before the screen opens, one further on when the screen first shows it (the screen closes and
+the one line says where).
+
+Exit codes: 0 closed with q; 2 bad input (not a recording, a bad cell, a bad sidecar or profile, --at outside the
+recording).
 """
 
 from __future__ import annotations
@@ -36,8 +41,12 @@ def run(args: argparse.Namespace) -> int:
                                     <= replay.end_s + 1e-9):
         raise InputError("command line", "--at", args.at, f"a time within the recording, {replay.start_s:.3f} to "
                                                          f"{replay.end_s:.3f} s")
-    from console.ui.replay import ReplayApp  # Textual: only when there is something to show
+    from console.ui.replay import TRAIL_S, ReplayApp  # Textual: only when there is something to show
 
+    t_s = replay.start_s if args.at is None else args.at
+    replay.source.ensure(replay.row_at(t_s - TRAIL_S), replay.row_at(t_s) + 2)   # a bad cell there: before the screen
     app = ReplayApp(replay, at_s=args.at)
     code = app.run()
+    if app.error is not None:
+        raise app.error
     return int(code) if code is not None else 0

@@ -17,6 +17,7 @@ from pathlib import Path
 import numpy as np
 import pytest
 
+from console import replay as replay_module
 from console.cli import main
 from console.core.safety import SafetyState, StopCause
 from console.errors import InputError
@@ -109,7 +110,7 @@ def test_dead_reckoning_follows_the_true_pose_when_no_pose_was_recorded(scene_re
     assert not replay.true_pose and any("dead reckoning" in m for m in replay.missing)
     x, y = rec["x_m"], rec["y_m"]
     travelled = float(np.sum(np.hypot(np.diff(x), np.diff(y))))
-    end = replay.pose[-1]
+    end = replay.poses(replay.rows - 1, replay.rows - 1)[0]
     assert math.hypot(end[0] - x[-1], end[1] - y[-1]) < 0.02 * travelled
 
 
@@ -235,3 +236,17 @@ def test_report_prints_the_replay_command_for_each_stop_and_fault(scene_recordin
     lines = [line for line in out.splitlines() if "diffdeck replay" in line]
     assert len(lines) == 3 and lines[0].startswith(f"at {SCENE.stop_s + PERIOD_S:.2f} s stop")
     assert lines[0].endswith(f"diffdeck replay {scene_recording} --at {SCENE.stop_s + PERIOD_S:.3f}")
+
+
+def test_a_bad_cell_further_on_is_named_when_its_rows_are_first_shown(scene_recording: Path, tmp_path: Path,
+                                                                      monkeypatch: pytest.MonkeyPatch) -> None:
+    """Rows are converted by blocks as they are first shown: the recording opens, its events are all there, and the
+    bad cell is one line naming its line and field once its block is shown."""
+    monkeypatch.setattr(replay_module, "BLOCK_ROWS", 128)
+    bad = _with_cell(scene_recording, tmp_path / "late.csv", 902, 3, "fast")     # v_mps, row 900
+    shutil.copy(sidecar_path(scene_recording), sidecar_path(bad))
+    replay = open_replay(bad)
+    assert len(replay.marks) == len(open_replay(scene_recording).marks)
+    assert replay.snapshot(100).t_s == pytest.approx(1.01)
+    with pytest.raises(InputError, match="late.csv: line 902, v_mps = 'fast'"):
+        replay.snapshot(899)                        # its block: rows 896 to 1023

@@ -11,10 +11,11 @@ from pathlib import Path
 import pytest
 from rich.console import Console
 
+from console import replay as replay_module
 from console.record import read_csv
 from console.replay import open_replay
-from console.ui.replay import REPLAY_BINDINGS, SPEEDS, ReplayApp
 from console.ui import screens
+from console.ui.replay import REPLAY_BINDINGS, SPEEDS, ReplayApp
 from console.ui.screens import HelpScreen
 from console.ui.widgets import AxisGauge, EventLog, LimitPanel, SafetyBanner, WheelPanel
 from tests.console.replay.conftest import SCENE, WREN
@@ -192,3 +193,19 @@ async def test_a_killed_run_replays_to_its_last_whole_row(scene_recording: Path,
         before_cut = [m.event.t_s for m in whole.marks if m.event.kind == "stop" and m.event.t_s <= rec_t[-1]]
         await pilot.press("home", *["s"] * (len(before_cut) + 1))     # only the stops before the cut are there
         assert app.t_s == before_cut[-1] and app.note == "no later stop"
+
+
+async def test_a_bad_cell_reached_by_a_jump_closes_the_screen_with_its_line(scene_recording: Path, tmp_path: Path,
+                                                                            monkeypatch: pytest.MonkeyPatch) -> None:
+    monkeypatch.setattr(replay_module, "BLOCK_ROWS", 128)
+    lines = scene_recording.read_text(encoding="utf-8").splitlines()
+    fields = lines[901].split(",")
+    fields[3] = "fast"                                                   # v_mps of row 900 (line 902)
+    lines[901] = ",".join(fields)
+    bad = tmp_path / "late.csv"
+    bad.write_text("\n".join(lines) + "\n", encoding="utf-8")
+    app, _ = make_app(bad, profile=WREN)
+    async with app.run_test(size=SIZE) as pilot:
+        await pilot.press("end")
+        await pilot.pause()
+    assert app.return_value == 2 and app.error is not None and "line 902, v_mps" in str(app.error)
