@@ -3,11 +3,11 @@ them, and row i turned into the Snapshot the drive screen's panels read.
 
 Reading is vectorized (an hour at 100 Hz is 360,000 rows): the columns the events and the position bar need are
 converted for every row on opening, the others by blocks the first time a row of the block is shown (`Rows`);
-seeking is a binary search on the time column, and a snapshot is built only for the row on screen. What the rows do not hold is
-derived where the profile allows it and said where it does not:
+seeking is a binary search on the time column, and a snapshot is built only for the row on screen.
+What the rows do not hold is derived where the profile allows it and said where it does not:
 - the envelope target and the binding limit: the profile's envelope applied to the recorded request (shaping), the
   same envelope the loop used when the profile is the one in the sidecar; `--profile` shows what another would do;
-- acceleration and jerk use: finite differences of the recorded shaped output over the profile's ramp limits;
+- acceleration and jerk use: central differences of the recorded shaped output over the profile's ramp limits;
 - the pose: the recorded true pose (simulated robot), else dead reckoning (shaping.odometry.arc_step) from the
   measured wheel rates;
 - stop causes: the robot's flags at the stop where recorded (watchdog, fault, emergency stop), else "not recorded".
