@@ -229,6 +229,7 @@ class Rows:
         if table.shape[0] != self.count:       # loadtxt skips blank lines: say where the first one is
             line = int(np.searchsorted(ends, body.find(b"\n\n"))) + 3
             raise _fail(path, f"line {line}", "empty", "a row on every line")
+        self.index = index
         self.cols = {name: np.full(self.count, np.nan) for name in columns}
         for k, name in enumerate(index):
             self.cols[name] = table[:, k].copy()
@@ -588,7 +589,7 @@ def open_replay(path: str | Path, profile: str | Path | None = None) -> Replay:
         source = f"the sidecar ({sidecar.profile_name or chosen.name})" if sidecar is not None else ""
     link = sidecar.link if sidecar is not None else None
     if (link is not None and link.telemetry_received == 0) or (
-            MEASURED[0] in rows.cols and not np.isfinite(rows.cols[MEASURED[0]]).any() and not rows._lazy):
+            MEASURED[0] in rows.index and not np.isfinite(rows.cols[MEASURED[0]]).any()):
         missing.append("no measured wheel rates (no telemetry was received)")
     gaps = int(np.count_nonzero(np.diff(rows.cols["t_s"]) > 1.5 / chosen.link.rate_hz))
     if gaps:

@@ -250,3 +250,17 @@ def test_a_bad_cell_further_on_is_named_when_its_rows_are_first_shown(scene_reco
     assert replay.snapshot(100).t_s == pytest.approx(1.01)
     with pytest.raises(InputError, match="late.csv: line 902, v_mps = 'fast'"):
         replay.snapshot(899)                        # its block: rows 896 to 1023
+
+
+def test_a_run_with_no_telemetry_says_so(scene_recording: Path, tmp_path: Path) -> None:
+    """No measured rates in any row (nothing answered): a real-robot recording (no pose) says it on opening."""
+    lines = scene_recording.read_text(encoding="utf-8").splitlines()
+    header = lines[0].split(",")
+    meas = [header.index(name) for name in ("left_meas_radps", "right_meas_radps")]
+    rows = [[("" if k in meas else cell) for k, cell in enumerate(line.split(","))] for line in lines[1:]]
+    silent = _without_columns(scene_recording, tmp_path / "full.csv", ())
+    silent.write_text("\n".join([lines[0]] + [",".join(row) for row in rows]) + "\n", encoding="utf-8")
+    real = _without_columns(silent, tmp_path / "silent.csv", ("x_m", "y_m", "heading_rad"))
+    replay = open_replay(real, WREN)
+    assert any("no measured wheel rates" in m for m in replay.missing)
+    assert replay.snapshot(500).left_meas_radps is None and replay.snapshot(500).pose is None
