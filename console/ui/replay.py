@@ -266,7 +266,7 @@ class GotoScreen(ModalScreen[float | None]):
         with Vertical(id="goto-box") as box:
             box.border_title = f"go to a time, {self.start_s:.2f} to {self.end_s:.2f} s"
             box.border_subtitle = "enter: go · escape: stay"
-            yield Input(placeholder="seconds, e.g. 12.4", id="goto-input")
+            yield Input(placeholder="seconds, e.g. 12.4", id="goto-input", select_on_focus=False)
             yield Static("", id="goto-problem")
 
     def on_input_submitted(self, event: Input.Submitted) -> None:
