@@ -131,16 +131,19 @@ class ReplayTitle(Panel):
     """One line: what is replayed, where, how fast, and the last thing a key could not do."""
 
     def show(self, name: str, t_s: float, end_s: float, playing: bool, speed: float, profile: str,
-             note: str) -> None:
-        self._update((name, round(t_s, 2), end_s, playing, speed, profile, note))
+             note: str, missing: int) -> None:
+        self._update((name, round(t_s, 2), end_s, playing, speed, profile, note, missing))
 
     def paint(self, width: int, height: int) -> Rows:
         if self._shown is None:
             return Rows()
-        name, t_s, end_s, playing, speed, profile, note = self._shown
+        name, t_s, end_s, playing, speed, profile, note, missing = self._shown
         text = Rows().append(" diffdeck replay ", "bold reverse").append("  ")
         text.append(f"{'▶ playing' if playing else '‖ paused'} x{speed:g}", "bold")
-        text.append(f"  ·  t {t_s:.2f} / {end_s:.2f} s  ·  {name}  ·  profile: {profile}")
+        text.append(f"  ·  t {t_s:.2f} / {end_s:.2f} s  ·  {name}")
+        if missing:
+            text.append(f"  ·  {missing} thing{'s' if missing > 1 else ''} missing (events at the start)", "bold")
+        text.append(f"  ·  profile: {profile}")
         if note:
             text.append(f"  ·  {note}", "italic")
         return text
@@ -350,7 +353,8 @@ class ReplayScreen(Screen[None]):
         replay = self.replay
         snap = replay.snapshot(row)
         envelope, s = replay.profile.envelope, snap.shaped
-        self.title_bar.show(replay.name, snap.t_s, replay.end_s, playing, speed, replay.profile_source, note)
+        self.title_bar.show(replay.name, snap.t_s, replay.end_s, playing, speed, replay.profile_source, note,
+                            len(replay.missing))
         cause = None if snap.cause is None else snap.cause.value
         self.banner.show(snap.state.value, cause, f"REPLAY {replay.name} · read-only")
         self.link_panel.show(snap)

@@ -186,6 +186,7 @@ async def test_a_killed_run_replays_to_its_last_whole_row(scene_recording: Path,
     async with app.run_test(size=SIZE) as pilot:
         events = text_of(app, EventLog)
         assert "the last line was cut off" in events and "no sidecar" in events
+        assert "2 things missing" in text_of(app, type(app.replay_screen.title_bar))
         await pilot.press("end")
         assert app.t_s == rec_t[-1]
         assert "not recorded" in text_of(app, type(app.replay_screen.link_panel))
