@@ -211,8 +211,12 @@ def _table(file: str, name: str, table: object) -> TomlTable:
 def load_profile(path: str | Path) -> Profile:
     """Read and validate a profile; raises ProfileError (one line) on anything that cannot be used."""
     path = Path(path)
+    return profile_from_data(path, _parse(path))
+
+
+def profile_from_data(path: Path, data: dict[str, Any]) -> Profile:
+    """A profile from its parsed tables (a recording's sidecar keeps them); errors name `path`."""
     file = str(path)
-    data = _parse(path)
     for section in data:
         if section not in SECTIONS:
             close = difflib.get_close_matches(section, SECTIONS, n=1)

@@ -19,7 +19,7 @@ from textual.containers import Horizontal, Vertical, VerticalScroll
 from textual.screen import ModalScreen
 from textual.widgets import Input, Static
 
-from console.ui.keys import DRIVE_KEYS, STOPPING
+from console.ui.keys import DRIVE_KEYS, STOPPING, KeyRow
 from console.ui.widgets import HintBar, SafetyBanner
 
 ResultType = TypeVar("ResultType")
@@ -53,21 +53,21 @@ CAUTIONS = (
 )
 
 
-def help_text(deadman_s: float) -> Group:
+def help_text(deadman_s: float, keys: list[KeyRow] = DRIVE_KEYS, help_notes: tuple[str, ...] = HELP_NOTES) -> Group:
     """The help overlay's content: a two-column table per group (descriptions wrap under themselves), then notes."""
     parts: list[Table | Text] = []
-    for title in dict.fromkeys(row.group for row in DRIVE_KEYS):
+    for title in dict.fromkeys(row.group for row in keys):
         table = Table.grid(padding=(0, 2))
         table.add_column(no_wrap=True, style="bold", min_width=12)
         table.add_column(ratio=1)
-        for row in DRIVE_KEYS:
+        for row in keys:
             if row.group == title:
                 table.add_row(row.keys, row.full)
         parts += [Text(title, style="bold underline"), table, Text("")]
     notes = Table.grid(padding=(0, 1))
     notes.add_column(no_wrap=True)
     notes.add_column(ratio=1)
-    for note in HELP_NOTES:
+    for note in help_notes:
         notes.add_row("•", note.format(deadman=deadman_s))
     parts.append(notes)
     return Group(*parts)
@@ -109,16 +109,19 @@ class HelpScreen(Overlay[None]):
         Binding("escape,question_mark,f1", "dismiss", "close help"),
     ]
 
-    def __init__(self, deadman_s: float) -> None:
+    def __init__(self, deadman_s: float, keys: list[KeyRow] = DRIVE_KEYS,
+                 help_notes: tuple[str, ...] = HELP_NOTES) -> None:
         super().__init__(id="help")
         self.deadman_s = deadman_s
+        self.key_list = keys
+        self.help_notes = help_notes
 
     def body(self) -> ComposeResult:
         with Vertical(id="help-box") as box:
             box.border_title = "keys and modes"
             box.border_subtitle = "escape closes"
             with VerticalScroll():
-                yield Static(help_text(self.deadman_s), id="help-text")
+                yield Static(help_text(self.deadman_s, self.key_list, self.help_notes), id="help-text")
 
 
 class CautionScreen(Overlay[bool]):

@@ -14,6 +14,7 @@ from rich.table import Table
 from console.bench.recording import read_recording
 from console.errors import InputError, OutputError
 from console.files import STDOUT, atomic_output
+from console.replay import notable_moments
 from console.tables import console_for
 
 if TYPE_CHECKING:
@@ -106,5 +107,7 @@ def run(args: argparse.Namespace) -> int:
                 console.print(report.polarity.candidate_blocks(), markup=False, highlight=False)
         for note in report.notes:
             console.print(f"note: {note}", markup=False)
+        for t_s, what, command in notable_moments(args.recording):      # watch it again (issue 14)
+            console.print(f"at {t_s:.2f} s {what}: {command}", markup=False, highlight=False, soft_wrap=True)
         console.print(f"report: {out / 'summary.md'} (+ {', '.join(p.name for p in paths if p.name != 'summary.md')})")
     return 0

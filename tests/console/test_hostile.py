@@ -294,6 +294,18 @@ CASES = [
          ": a readable JSON sidecar (RecursionError)", {"rec.csv": recording(),
                                                          "rec.csv.json": "[" * 100000 + "]" * 100000}),
     Case("recording is a FIFO", ("report", "{tmp}/pipe", "-o", "{tmp}/report"), 2, "is a FIFO", {"pipe": "fifo:"}),
+    # -- recordings (replay) ------------------------------------------------------------------------------------------
+    Case("replay a request trace", ("replay", T), 2, "trace.csv: header = 't_s,v_mps,omega_radps': a diffdeck "
+         "recording", GOOD),
+    Case("replay a FIFO", ("replay", "{tmp}/pipe"), 2, "is a FIFO", {"pipe": "fifo:"}),
+    Case("replay with no sidecar and no profile", ("replay", REC), 2, "rec.csv.json: file = 'missing': the sidecar",
+         {"rec.csv": recording()}),
+    Case("replay inf", ("replay", REC, "--profile", P), 2, "rec.csv: line 31, v_mps = 'inf': a finite number",
+         {"rec.csv": recording("0.30,0.5,0,inf,0,6,6,5.9,5.9,armed"), "robot.toml": WREN}),
+    Case("replay an unknown state", ("replay", REC, "--profile", P), 2, "line 31, state = 'cruising': one of",
+         {"rec.csv": recording("0.30,0.5,0,0.4,0,6,6,5.9,5.9,cruising"), "robot.toml": WREN}),
+    Case("replay --at past the end", ("replay", REC, "--profile", P, "--at", "5"), 2,
+         "--at = 5.0: a time within the recording, 0.010 to 0.400 s", {"rec.csv": recording(), "robot.toml": WREN}),
     Case("recording missing", ("report", "{tmp}/none.csv", "-o", "{tmp}/report"), 2, "none.csv: file = "),
     Case("report -o a file", ("report", REC, "-o", "{tmp}/taken"), 6, "taken: exists and is not a folder",
          {"rec.csv": recording(), "taken": "x"}),

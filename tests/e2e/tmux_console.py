@@ -26,18 +26,18 @@ def tmux_missing_reason() -> str | None:
 
 
 class TmuxConsole:
-    """`python -m console drive ...` in its own tmux server and session; `close()` always kills both.
+    """`python -m console drive ...` (or another verb) in its own tmux server and session; `close()` always kills both.
 
     A private server (-L): a shared one hands new panes the environment it was started with (another process's
     COLUMNS / LINES would fix the app's idea of the terminal size), and other users' sessions stay out of reach.
     """
 
     def __init__(self, drive_args: list[str], *, size: tuple[int, int] = (120, 40),
-                 env: dict[str, str] | None = None, cwd: Path = ROOT) -> None:
+                 env: dict[str, str] | None = None, cwd: Path = ROOT, verb: str = "drive") -> None:
         assert TMUX is not None
         self.name = f"diffdeck-test-{os.getpid()}-{time.monotonic_ns() % 10**9}"
         self.tmux = [TMUX, "-L", self.name, "-f", "/dev/null"]
-        command = " ".join(shlex.quote(part) for part in [sys.executable, "-m", "console", "drive", *drive_args])
+        command = " ".join(shlex.quote(part) for part in [sys.executable, "-m", "console", verb, *drive_args])
         exports = "unset COLUMNS LINES; " + "".join(f"export {key}={shlex.quote(value)}; "
                                                      for key, value in (env or {}).items())
         self.size = size
