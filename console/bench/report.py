@@ -35,6 +35,7 @@ DEFAULT_SPEED_ERROR_MPS = 0.05      # when the top speed is unknown (no bench si
 PLOT_POINTS = 4000                  # per line: min/max pairs keep the peaks of long recordings
 FIGURES = ("response.png", "acceleration.png", "tracking.png")
 TUNING_HEADER = "wheel_loop.h"      # the C header with the suggested constants (identification runs with gains)
+TUNING_FIGURE = "wheel_loop.png"    # identification runs: each wheel's steps with their fitted models
 UNITS = {"speed": "m/s", "turn": "rad/s", "left": "rad/s", "right": "rad/s"}
 
 
@@ -389,7 +390,7 @@ def _tuning(rec: Recording, tau_c_s: float | None, notes: list[str]) -> Tuning |
             wheel, t, duty, rate,
             [DutyStep(seg.index, seg.name, seg.t_start_s + seg.lead_s, seg.t_end_s, seg.start * scale,
                       seg.end * scale) for seg in mine],
-            ramps, rest_band(rate[at_rest]), period, tau_c_s)
+            ramps, rest_band(rate[at_rest]), period, tau_c_s, scale)
     notes += [f"no {tuned.wheel} wheel loop gains: {'; '.join(tuned.problems)}" for tuned in wheels.values()
               if tuned.problems]
     return Tuning(wheels, period, tau_c_s, _number(units, "gear_ratio", 1.0), _number(units, "ticks_per_rev", 0.0))
@@ -525,8 +526,64 @@ def _figures(rec: Recording, report: Report, out: Path) -> list[Path]:
     axs[1].legend(loc="upper right", fontsize=8)
     mark(axs[1])
     finish(fig, FIGURES[2], "tracking error")
+    if report.tuning is not None and report.tuning.wheels:
+        fig = _tuning_figure(plt, rec, report.tuning)
+        finish(fig, TUNING_FIGURE, "open-loop steps and their first-order-plus-dead-time fits")
     plt.close("all")
     return paths
+
+
+def _tuning_figure(plt: Any, rec: Recording, tuning: Tuning) -> Any:
+    """Per wheel: the measured rate over its identification segments with each step's fitted model, the gains in the
+    title, and a close-up of the first step between moving levels (the samples against the model)."""
+    wheels = list(tuning.wheels.values())
+    fig, axs = plt.subplots(len(wheels), 2, figsize=(12, 3.2 * len(wheels) + 1), squeeze=False,
+                            gridspec_kw={"width_ratios": [3, 1]})
+    t = rec.t
+    for (ax, close), wheel in zip(axs, wheels):
+        steps = [s for s in wheel.steps if s.fit is not None]
+        if not steps:
+            continue
+        start = min(seg.t_start_s for seg in rec.segments if seg.axis == wheel.wheel)
+        rows = (t >= start) & (t <= steps[-1].step.t_end_s)
+        rate = rec.data[f"{wheel.wheel}_meas_radps"]
+        duty = rec.data[f"{wheel.wheel}_cmd_radps"] * wheel.duty_per_command
+        ax.plot(t[rows], rate[rows], color="0.5", lw=0.8, label="measured")
+        zoomed = False
+        for i, step_fit in enumerate(steps):
+            step, fit = step_fit.step, step_fit.fit
+            assert fit is not None
+            window = (t >= step.t_start_s - tuning_mod.STEP_LEAD_S) & (t < step.t_end_s)
+            before = window & (t < step.t_start_s)
+            level = float(np.mean(rate[before])) if np.any(before) else 0.0
+            dt = float(np.median(np.diff(t[window])))
+            model = level + analysis.simulate_fopdt(dt, duty[window] - step.duty_before, fit.gain, fit.tau_s,
+                                                    fit.dead_time_s, 0.0)
+            colour = "C3" if step_fit.problems else f"C{i % 3}"
+            ax.plot(t[window], model, "--", lw=1.0, color=colour, label="fits (red: fails its gates)" if i == 0
+                    else None)
+            if step.linear and not zoomed:
+                zoomed = True
+                near = window & (t < step.t_start_s + 6 * fit.lag_s)
+                close.plot(t[near], rate[near], "o", ms=3, color="0.4", label="measured")
+                close.plot(t[near], model[near[window]], "--", color=colour, label="fit")
+                close.axvline(step.t_start_s, color="0.6", lw=0.6, ls=":")
+                close.set_title(f"{step.name}: tau {fit.tau_s * 1e3:.1f} ms, dead time {fit.dead_time_s * 1e3:.1f} "
+                                "ms", fontsize=9)
+                close.set_xlabel("t (s)")
+                close.grid(True, lw=0.3)
+                close.legend(loc="lower right", fontsize=8)
+        gains = wheel.gains
+        ax.set_title(f"{wheel.wheel}: " + (
+            f"gain {wheel.gain:.4g} rad/s per duty, tau {(wheel.tau_s or 0) * 1e3:.1f} ms, dead time "
+            f"{(wheel.dead_time_s or 0) * 1e3:.1f} ms; SIMC Kc {gains.kc:.4g} duty per rad/s, tau_I "
+            f"{gains.tau_i_s * 1e3:.1f} ms (tau_c {gains.tau_c_s * 1e3:.1f} ms)" if gains is not None
+            else "no gains: " + "; ".join(wheel.problems)[:140]), fontsize=9)
+        ax.set_ylabel(f"{wheel.wheel} wheel (rad/s)")
+        ax.set_xlabel("t (s)")
+        ax.grid(True, lw=0.3)
+        ax.legend(loc="upper right", fontsize=8)
+    return fig
 
 
 def _save(fig: Any, path: Path, bottom: float = 0.0) -> Path:
@@ -596,7 +653,7 @@ def markdown(report: Report) -> str:
         lines += [f"- {peak.text()}" for peak in report.body]
         lines += ["", f"The limits are from the profile's [body]: {BODY_CAUTION}"]
     lines += ["", "## Figures", ""]
-    lines += [f"![{Path(f).stem}]({f})" for f in FIGURES]
+    lines += [f"![{Path(f).stem}]({f})" for f in (*FIGURES, *((TUNING_FIGURE,) if report.tuning else ()))]
     return "\n".join(lines) + "\n"
 
 
@@ -687,7 +744,8 @@ def write_report(rec: Recording, report: Report, out: Path) -> list[Path]:
     staging: Path | None = None
     try:
         header = report.tuning.c_header(Path(report.recording).name) if report.tuning else None
-        for name in (*FIGURES, "report.json", "summary.md", *((TUNING_HEADER,) if header else ())):
+        extra = ((TUNING_FIGURE,) if report.tuning else ()) + ((TUNING_HEADER,) if header else ())
+        for name in (*FIGURES, "report.json", "summary.md", *extra):
             check_output(out / name)
         try:
             staging = Path(tempfile.mkdtemp(dir=out, prefix=".report-"))

@@ -221,6 +221,7 @@ class WheelTuning:
     gains_sampled: PiGains | None             # for a loop run every `period_s` (dead time + half a period)
     period_s: float
     problems: tuple[str, ...]                 # why there are no gains (empty: there are)
+    duty_per_command: float = 1.0             # duty per recorded command unit (wheel rad/s of the profile's unit)
 
 
 STEP_LEAD_S = 0.2           # the step fit starts this long before the step: the level it starts from
@@ -243,7 +244,7 @@ def _median(values: list[float]) -> float:
 
 def tune_wheel(wheel: str, t: np.ndarray, duty: np.ndarray, rate: np.ndarray, steps: list[DutyStep],
                ramps: list[tuple[str, float, float]], rest_band_radps: float, period_s: float,
-               tau_c_s: float | None = None) -> WheelTuning:
+               tau_c_s: float | None = None, duty_per_command: float = 1.0) -> WheelTuning:
     """Feed-forward, step fits, break-away and SIMC gains of one wheel from its open-loop identification rows.
 
     `duty` is what the wheel was commanded (-1 .. 1), `rate` what it measured (wheel rad/s); `ramps` are the slow
@@ -300,7 +301,7 @@ def tune_wheel(wheel: str, t: np.ndarray, duty: np.ndarray, rate: np.ndarray, st
         except ValueError as error:
             problems.append(f"{error}: give --tau-c")
     return WheelTuning(wheel, ff, ff_problems, fits, breaks, rest_band_radps, gain, tau, theta, gains, sampled,
-                       period_s, tuple(problems))
+                       period_s, tuple(problems), duty_per_command)
 
 
 def rest_band(rate: np.ndarray) -> float:

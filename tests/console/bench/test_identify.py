@@ -31,7 +31,7 @@ import pytest
 
 from console.bench.program import builtin
 from console.bench.recording import read_recording
-from console.bench.report import TUNING_HEADER, Report, analyze, write_report
+from console.bench.report import TUNING_FIGURE, TUNING_HEADER, Report, analyze, write_report
 from console.bench.run import BenchRun
 from console.bench.tomledit import edit_toml
 from console.cli import main
@@ -181,7 +181,8 @@ def test_report_cli_prints_the_gains_and_writes_the_header(tmp_path: Path, capsy
     header = (tmp_path / "rep" / TUNING_HEADER).read_text()
     assert "#define DDK_LEFT_PI_KP_PER_TPS" in header and header.count("#define") == 12
     summary = (tmp_path / "rep" / "summary.md").read_text()
-    assert "## Wheel speed loop" in summary and "Skogestad" in summary
+    assert "## Wheel speed loop" in summary and "Skogestad" in summary and f"]({TUNING_FIGURE})" in summary
+    assert (tmp_path / "rep" / TUNING_FIGURE).read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
 
 
 def test_measured_peaks_are_held_against_the_static_body_limits(tmp_path: Path) -> None:
