@@ -1,6 +1,8 @@
 """Wheel speed loop bring-up: a feed-forward model and PI gains from an open-loop identification run.
 
 Pure computation on arrays and fitted numbers (no files, no plotting), so the report and the tests call it alike.
+`tune_wheel` takes one wheel's rows of an `identify` run (duty commanded, rate measured, the steps and ramps) and
+returns its feed-forward, step fits, break-away duties and gains, each behind its quality gates.
 
 - Feed-forward: duty = kS sign(w) + kV w + kA dw/dt, fitted by least squares (common practice in robot drive
   bring-up: static friction, back-EMF plus viscous friction, inertia).
