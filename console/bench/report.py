@@ -712,13 +712,12 @@ def tuning_markdown(tuning: Tuning, source: str) -> list[str]:
         lines += ["", "In the firmware's speed unit (the sampled gains; the feed-forward per unit too):", "",
                   "| wheel | speed unit | Kp (duty per unit) | Ki T (duty per unit) | kV (duty per unit) | "
                   "kA (duty per unit/s) |", "|---|---|---|---|---|---|"]
-        for wheel in ready:
-            assert wheel.gains_sampled is not None and wheel.feedforward is not None
+        for suggestion in ready:
             for name, _, per_radps in tuning.firmware_units():
-                kp, ki_t = wheel.gains_sampled.in_unit(per_radps).per_period(tuning.period_s)
-                lines.append(f"| {wheel.wheel} | {name} | {kp:.4g} | {ki_t:.4g} | "
-                             f"{wheel.feedforward.duty_per_radps / per_radps:.4g} | "
-                             f"{wheel.feedforward.duty_per_radps2 / per_radps:.4g} |")
+                kp, ki_t = suggestion.sampled.in_unit(per_radps).per_period(tuning.period_s)
+                lines.append(f"| {suggestion.wheel.wheel} | {name} | {kp:.4g} | {ki_t:.4g} | "
+                             f"{suggestion.ff.duty_per_radps / per_radps:.4g} | "
+                             f"{suggestion.ff.duty_per_radps2 / per_radps:.4g} |")
     snippet, header = tuning.sim_snippet(), tuning.c_header(source)
     if snippet and header:
         lines += ["", "To try them on the simulated robot first (`[sim]`, with the profile's motor constants):", "",

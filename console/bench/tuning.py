@@ -286,12 +286,11 @@ def tune_wheel(wheel: str, t: np.ndarray, duty: np.ndarray, rate: np.ndarray, st
         gain = _median([f.gain for f in linear])
         tau = _median([f.tau_s for f in linear])
         theta = _median([f.dead_time_s for f in linear])
-    if ff_problems:
+    if ff is None or ff_problems:
         problems.append("the feed-forward fit fails its quality gates")
     elif gain is not None and tau is not None:
-        for name, steps_value, ff_value in (("gain", gain, 1.0 / ff.duty_per_radps),   # type: ignore[union-attr]
-                                            ("time constant", tau,
-                                             ff.duty_per_radps2 / ff.duty_per_radps)):   # type: ignore[union-attr]
+        for name, steps_value, ff_value in (("gain", gain, 1.0 / ff.duty_per_radps),
+                                            ("time constant", tau, ff.duty_per_radps2 / ff.duty_per_radps)):
             if abs(ff_value - steps_value) > MAX_MODEL_DISAGREEMENT * abs(steps_value):
                 problems.append(f"the step fits' {name} {steps_value:.4g} and the feed-forward fit's {ff_value:.4g} "
                                 f"differ by more than {MAX_MODEL_DISAGREEMENT:.0%}: the motor is not first order over "
@@ -310,6 +309,16 @@ def rest_band(rate: np.ndarray) -> float:
     """REST_SIGMAS standard deviations of a rate measured at rest (0 when there are too few samples)."""
     finite = rate[np.isfinite(rate)]
     return REST_SIGMAS * float(np.std(finite)) if finite.size >= 10 else 0.0
+
+
+@dataclass(frozen=True, slots=True)
+class Suggestion:
+    """A wheel that has gains: its tuning with the feed-forward, continuous and sampled gains known to be there."""
+
+    wheel: WheelTuning
+    ff: FeedForward
+    gains: PiGains
+    sampled: PiGains
 
 
 @dataclass(frozen=True, slots=True)
@@ -332,8 +341,10 @@ class Tuning:
         return units
 
     @property
-    def ready(self) -> list[WheelTuning]:
-        return [w for w in self.wheels.values() if w.gains is not None and w.feedforward is not None]
+    def ready(self) -> list[Suggestion]:
+        """The wheels with gains, each with its (passing) feed-forward and gains unwrapped."""
+        return [Suggestion(w, w.feedforward, w.gains, w.gains_sampled) for w in self.wheels.values()
+                if w.feedforward is not None and w.gains is not None and w.gains_sampled is not None]
 
     def sim_snippet(self) -> str | None:
         """[sim] keys to try the suggestion on the simulated robot (one set for both wheels: the more cautious
@@ -341,13 +352,13 @@ class Tuning:
         ready = self.ready
         if len(ready) != len(self.wheels) or not ready:
             return None
-        cautious = min(ready, key=lambda w: w.gains.kc)       # type: ignore[union-attr]
+        cautious = min(ready, key=lambda w: w.gains.kc)
         gains = cautious.gains
-        assert gains is not None
-        ks = float(np.mean([w.feedforward.static_duty for w in ready]))          # type: ignore[union-attr]
-        kv = float(np.mean([w.feedforward.duty_per_radps for w in ready]))       # type: ignore[union-attr]
+        ks = float(np.mean([w.ff.static_duty for w in ready]))
+        kv = float(np.mean([w.ff.duty_per_radps for w in ready]))
         return "\n".join([
-            f"# suggested by `diffdeck report`: SIMC PI, tau_c {gains.tau_c_s * 1e3:.1f} ms, of the {cautious.wheel}",
+            f"# suggested by `diffdeck report`: SIMC PI, tau_c {gains.tau_c_s * 1e3:.1f} ms, of the "
+            f"{cautious.wheel.wheel}",
             "# wheel (the more cautious), mean feed-forward; continuous gains (the simulated",
             "# firmware runs its loop every 1 ms); rates in wheel rad/s",
             "[sim]", 'wheel_loop = "pi"',
@@ -366,14 +377,14 @@ class Tuning:
         lines = [f"/* Wheel speed loop constants suggested by diffdeck report from {source}.",
                  f" * Speeds in {name}; duty from -1 to 1. Each period of {self.period_s:g} s:",
                  " *   e = reference - measured;  sum += e (only while the duty is not clamped: anti-windup);",
-                 " *   duty = FF_KS sign(reference) + FF_KV reference + PI_KP e + PI_KI_T sum, clamped to +-1.",
+                 " *   duty = FF_KS sign(reference) + FF_KV reference + FF_KA d(reference)/dt + PI_KP e + PI_KI_T sum,",
+                 " *   clamped to +-1 (the console's shaped references are ramps: their rate of change is known).",
                  " * Try them on the simulated robot and on a stand (wheels off the ground) before the floor. */",
                  "#ifndef DIFFDECK_WHEEL_LOOP_H", "#define DIFFDECK_WHEEL_LOOP_H", "",
                  f"#define DDK_LOOP_PERIOD_S {self.period_s:.6g}f"]
-        for wheel in ready:
-            ff, gains = wheel.feedforward, wheel.gains_sampled
-            assert ff is not None and gains is not None
-            kp, ki_t = gains.in_unit(per_radps).per_period(self.period_s)
+        for suggestion in ready:
+            wheel, ff = suggestion.wheel, suggestion.ff
+            kp, ki_t = suggestion.sampled.in_unit(per_radps).per_period(self.period_s)
             tag = f"DDK_{wheel.wheel.upper()}"
             lines += ["", f"/* {wheel.wheel} wheel: gain {wheel.gain:.4g} rad/s per duty, time constant "
                           f"{(wheel.tau_s or 0.0) * 1e3:.1f} ms, dead time {(wheel.dead_time_s or 0.0) * 1e3:.1f} ms "
