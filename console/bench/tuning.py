@@ -104,9 +104,10 @@ BREAK_SMOOTH_S = 0.15       # the break-away reading smooths the rate over this 
 MIN_FF_WINDOWS = 50         # our choice, as the FOPDT fits' 50 moving samples
 MIN_FF_R2 = MIN_FIT_R2      # as the FOPDT fits' gate
 MAX_MODEL_DISAGREEMENT = 0.25
-"""The step fits and the feed-forward fit describe the same motor: gain 1 / kV and time constant kA / kV. When they
-differ by more than 25 % (our choice) the motor is not first order over the range (a current limit, backlash, a
-coarse encoder) and gains from either would be advice from a model that does not describe it."""
+"""The step fits and the feed-forward fit describe the same motor: gain 1 / kV and time constant kA / kV, the same
+gain at every amplitude. When they differ by more than 25 % (our choice) the motor is not first order, or not linear,
+over the range (a current limit, backlash, a coarse encoder, heavy drag) and gains from either would be advice from a
+model that does not describe it."""
 
 
 def window_regressors(t: np.ndarray, duty: np.ndarray, rate: np.ndarray, dead_time_s: float,
@@ -151,7 +152,8 @@ def feedforward_problems(ff: FeedForward | None, why_none: str = "") -> tuple[st
         if not value > 0.0:
             problems.append(f"{name} {value:.3g} <= 0: the wrong sign (check polarity first)")
     if ff.static_duty < 0.0:
-        problems.append(f"kS {ff.static_duty:.3g} < 0: friction cannot push (check polarity first)")
+        problems.append(f"kS {ff.static_duty:.3g} < 0: friction cannot push (a reversed wheel, or a rate that does "
+                        "not grow in a straight line with the duty: check polarity first, then the step fits' gains)")
     return tuple(problems)
 
 
@@ -283,6 +285,11 @@ def tune_wheel(wheel: str, t: np.ndarray, duty: np.ndarray, rate: np.ndarray, st
             ": " + "; ".join(f"{f.step.name}: {', '.join(f.problems)}" for f in failing if f.problems)
             if failing else " (the program has none)"))
     else:
+        low, high = min(f.gain for f in linear), max(f.gain for f in linear)
+        if high > (1.0 + MAX_MODEL_DISAGREEMENT) * low:
+            problems.append(f"the gain between moving levels changes from {low:.4g} to {high:.4g} rad/s per duty with "
+                            f"the amplitude (more than {MAX_MODEL_DISAGREEMENT:.0%}): the motor is not linear over "
+                            "this range (check for a current limit, a sagging supply, heavy drag)")
         gain = _median([f.gain for f in linear])
         tau = _median([f.tau_s for f in linear])
         theta = _median([f.dead_time_s for f in linear])
