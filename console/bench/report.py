@@ -291,10 +291,14 @@ def analyze(rec: Recording, speed_error_mps: float | None = None, tau_c_s: float
     failed = [w for w, p in problems.items() if p]
     limits = None
     radius, track = rec.wheel_radius_m, rec.track_width_m
+    tuning = _tuning(rec, tau_c_s, notes)
     if radius is not None and track is not None and (wiring or failed):
         notes.append("no limits suggested: " + (
             "a wiring fault comes first (see the polarity check)" if wiring else
             f"the {' and '.join(failed)} wheel fit{'s fail' if len(failed) > 1 else ' fails'} its quality gates"))
+    elif radius is not None and track is not None and tuning is not None:
+        notes.append("no limits suggested: an open-loop identification run describes the motors without their speed "
+                     "loop; put the loop in (see the wheel speed loop section), then run a bench program for limits")
     elif radius is not None and track is not None:
         if speed_error_mps is None:
             speed_error_mps = (DEFAULT_SPEED_ERROR_SHARE * rec.top_speed_mps if rec.top_speed_mps
@@ -306,7 +310,6 @@ def analyze(rec: Recording, speed_error_mps: float | None = None, tau_c_s: float
         lags = {w: analysis.ramp_lag(rec.t, rec.data[f"{w}_cmd_radps"], rec.data[f"{w}_meas_radps"], shaped)
                 for w in ("left", "right")}
         limits = analysis.suggest_limits(fits, radius, track, speed_error_mps, lags)
-    tuning = _tuning(rec, tau_c_s, notes)
     return Report(str(rec.path), _profile(rec).get("name"), rec.program, float(rec.t[-1] - rec.t[0]),
                   int(rec.t.size), tuple(segments), fits, problems, limits, polarity, (*notes, *step_notes),
                   _profile_table(rec, "limits"), tuning, _body_peaks(sig))

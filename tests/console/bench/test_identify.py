@@ -211,6 +211,7 @@ def test_report_cli_prints_the_gains_and_writes_the_header(tmp_path: Path, capsy
     assert main(["report", str(csv), "-o", str(tmp_path / "rep"), "--tau-c", "0.02"]) == 0
     out = capsys.readouterr().out
     assert "left wheel: gain" in out and "tau_c 20.0 ms" in out and 'wheel_loop = "pi"' in out
+    assert "[limits]" not in out and "no limits suggested: an open-loop identification run" in out
     header = (tmp_path / "rep" / TUNING_HEADER).read_text()
     assert "#define DDK_LEFT_PI_KP_PER_TPS" in header and header.count("#define") == 12
     summary = (tmp_path / "rep" / "summary.md").read_text()
