@@ -408,6 +408,43 @@ axis = "right"
 duration_s = 1.5
 """,
 }
+
+IDENTIFY_LEVELS_PCT = (25, 50, 75)
+"""Duty steps of `identify`, in % of the wheel-rate limit: one from rest, two between moving levels (the linear
+region, where static friction does not change), then back to rest."""
+IDENTIFY_RAMP_PCT = 20
+IDENTIFY_RAMP_S = 8.0       # slow against any wheel's time constant: the break-away is read as if static
+IDENTIFY_HOLD_S = 1.5       # per level: 5 time constants of a wheel up to 0.3 s
+
+
+def _identify_toml() -> str:
+    """The `identify` program as TOML text (written out by a loop: 25 segments of the same few shapes)."""
+    lines = ["[program]",
+             'description = "open-loop identification, WHEELS OFF THE GROUND: per wheel and direction a slow '
+             f'break-away ramp to {IDENTIFY_RAMP_PCT} %, then steps to '
+             f'{", ".join(str(level) for level in IDENTIFY_LEVELS_PCT)} % of the wheel-rate limit and back to rest, '
+             'around the shaper"',
+             '[[segment]]', 'kind = "hold"', 'name = "rest at start"', 'axis = "left"', "duration_s = 1.0",
+             "bypass_shaper = true"]
+
+    def segment(kind: str, name: str, wheel: str, start: str, end: str, duration_s: float) -> None:
+        lines.extend(["[[segment]]", f'kind = "{kind}"', f'name = "{name}"', f'axis = "{wheel}"', f'from = "{start}"',
+                      f'to = "{end}"', f"duration_s = {duration_s}", "bypass_shaper = true"])
+
+    for wheel in ("left", "right"):
+        for sign, way in (("", "forwards"), ("-", "backwards")):
+            ramp_top = f"{sign}{IDENTIFY_RAMP_PCT}%"
+            segment("ramp", f"{wheel} break-away {way}", wheel, "0%", ramp_top, IDENTIFY_RAMP_S)
+            segment("step", f"{wheel} ramp end {way}", wheel, ramp_top, "0%", 1.0)
+            before = "0%"
+            for level in IDENTIFY_LEVELS_PCT:
+                segment("step", f"{wheel} {sign or '+'}{level} %", wheel, before, f"{sign}{level}%", IDENTIFY_HOLD_S)
+                before = f"{sign}{level}%"
+            segment("step", f"{wheel} rest {way}", wheel, before, "0%", IDENTIFY_HOLD_S)
+    return "\n".join(lines) + "\n"
+
+
+BUILTIN_TOML["identify"] = _identify_toml()
 BUILTINS: dict[str, str] = {name: tomllib.loads(text)["program"]["description"] for name, text in BUILTIN_TOML.items()}
 
 

@@ -20,17 +20,22 @@ from typing import Any
 import numpy as np
 
 from console.bench import analysis
+from console.bench import tuning as tuning_mod
 from console.bench.analysis import FopdtFit, StepMetrics, SuggestedLimits
 from console.bench.polarity import PolarityReport, check_polarity
 from console.bench.recording import Recording, Segment
+from console.bench.tuning import DutyStep, Tuning, rest_band, tune_wheel
 from console.errors import OutputError
 from console.files import atomic_output, check_output, make_folders, reason, remove_folders, write_atomic
 from console.record import sidecar_path
+from shaping.body import Body, tip_and_grip
 
 DEFAULT_SPEED_ERROR_SHARE = 0.05    # stated tracking error for the suggested limits: 5 % of the top speed
 DEFAULT_SPEED_ERROR_MPS = 0.05      # when the top speed is unknown (no bench sidecar)
 PLOT_POINTS = 4000                  # per line: min/max pairs keep the peaks of long recordings
 FIGURES = ("response.png", "acceleration.png", "tracking.png")
+TUNING_HEADER = "wheel_loop.h"      # the C header with the suggested constants (identification runs with gains)
+TUNING_FIGURE = "wheel_loop.png"    # identification runs: each wheel's steps with their fitted models
 UNITS = {"speed": "m/s", "turn": "rad/s", "left": "rad/s", "right": "rad/s"}
 
 
@@ -56,6 +61,31 @@ class SegmentReport:
 
 
 @dataclass(frozen=True, slots=True)
+class BodyPeak:
+    """A measured peak acceleration of the body against the static limit of the profile's [body] that binds it."""
+
+    what: str                 # "acceleration", "deceleration", "sideways acceleration"
+    measured_mps2: float
+    limit: str                # "tipping over the back", "traction", ...
+    limit_mps2: float
+
+    @property
+    def exceeded(self) -> bool:
+        return self.measured_mps2 > self.limit_mps2
+
+    def text(self) -> str:
+        share = self.measured_mps2 / self.limit_mps2 if self.limit_mps2 > 0 else math.inf
+        return (f"peak {self.what} {self.measured_mps2:.3g} m/s^2 is {share:.0%} of the static limit for "
+                f"{self.limit} ({self.limit_mps2:.3g} m/s^2)" + (": BEYOND it" if self.exceeded else ""))
+
+
+BODY_CAUTION = ("static figures on level ground: slopes, payload shifts, bumps and the robot's own dynamics lower "
+                "them; measured on a stand (wheels off the ground), the peaks are what the body would feel if it "
+                "followed the wheels on the floor. Defer to local codes and licensed practice for anything people "
+                "ride on or work beside.")
+
+
+@dataclass(frozen=True, slots=True)
 class Report:
     recording: str
     robot: str | None                    # the profile's robot name, when the recorder's sidecar has it
@@ -69,6 +99,8 @@ class Report:
     polarity: PolarityReport | None
     notes: tuple[str, ...]
     profile_limits: dict[str, object]    # the [limits] of the profile the recording was made with (if known)
+    tuning: Tuning | None = None         # wheel speed loop suggestions from an open-loop identification run
+    body: tuple[BodyPeak, ...] = ()      # measured peaks against the [body]'s static tip-over and traction limits
 
     def limits_snippet(self) -> str | None:
         return self.limits.snippet(Path(self.recording).name, self.profile_limits) if self.limits else None
@@ -92,6 +124,8 @@ class Report:
         data["limits_snippet"] = self.limits_snippet()
         data["polarity_snippet"] = self.polarity.snippet() if self.polarity else None
         data["polarity_candidate_blocks"] = self.polarity.candidate_blocks() if self.polarity else None
+        data["tuning_sim_snippet"] = self.tuning.sim_snippet() if self.tuning else None
+        data["tuning_c_header"] = self.tuning.c_header(Path(self.recording).name) if self.tuning else None
         return data
 
 
@@ -225,7 +259,7 @@ def _segment_report(sig: _Signals, seg: Segment) -> tuple[SegmentReport, list[st
     ), notes
 
 
-def analyze(rec: Recording, speed_error_mps: float | None = None) -> Report:
+def analyze(rec: Recording, speed_error_mps: float | None = None, tau_c_s: float | None = None) -> Report:
     sig = _Signals(rec)
     notes: list[str] = []
     if not sig.body:
@@ -257,10 +291,14 @@ def analyze(rec: Recording, speed_error_mps: float | None = None) -> Report:
     failed = [w for w, p in problems.items() if p]
     limits = None
     radius, track = rec.wheel_radius_m, rec.track_width_m
+    tuning = _tuning(rec, tau_c_s, notes)
     if radius is not None and track is not None and (wiring or failed):
         notes.append("no limits suggested: " + (
             "a wiring fault comes first (see the polarity check)" if wiring else
             f"the {' and '.join(failed)} wheel fit{'s fail' if len(failed) > 1 else ' fails'} its quality gates"))
+    elif radius is not None and track is not None and tuning is not None:
+        notes.append("no limits suggested: an open-loop identification run describes the motors without their speed "
+                     "loop; put the loop in (see the wheel speed loop section), then run a bench program for limits")
     elif radius is not None and track is not None:
         if speed_error_mps is None:
             speed_error_mps = (DEFAULT_SPEED_ERROR_SHARE * rec.top_speed_mps if rec.top_speed_mps
@@ -274,7 +312,91 @@ def analyze(rec: Recording, speed_error_mps: float | None = None) -> Report:
         limits = analysis.suggest_limits(fits, radius, track, speed_error_mps, lags)
     return Report(str(rec.path), _profile(rec).get("name"), rec.program, float(rec.t[-1] - rec.t[0]),
                   int(rec.t.size), tuple(segments), fits, problems, limits, polarity, (*notes, *step_notes),
-                  _profile_table(rec, "limits"))
+                  _profile_table(rec, "limits"), tuning, _body_peaks(sig))
+
+
+def _body_peaks(sig: _Signals) -> tuple[BodyPeak, ...]:
+    """The measured peaks (speed derivative, v omega) against the static limits of the profile's [body], if any.
+
+    Speeding up tips the body over the back, slowing down over the front (shaping.body); the tyres' traction caps
+    both and the sideways acceleration too. The lower of the two limits binds.
+    """
+    table = _profile_table(sig.rec, "body")
+    rec = sig.rec
+    if not table or rec.track_width_m is None or rec.wheel_radius_m is None:
+        return ()
+    try:
+        body = Body(mass_kg=None, cog_height_m=_number(table, "cog_height_m", math.nan),
+                    cog_ahead_m=_number(table, "cog_ahead_m", 0.0),
+                    support_ahead_m=_number(table, "support_ahead_m", 0.0),
+                    support_behind_m=_number(table, "support_behind_m", 0.0),
+                    drive_load_share=_number(table, "drive_load_share", 1.0),
+                    tyre_friction=_number(table, "tyre_friction", math.nan))
+        grip = tip_and_grip(body, rec.track_width_m)
+    except (ArithmeticError, ValueError):
+        return ()
+    if not all(math.isfinite(x) and x > 0 for x in (grip.sideways_tip_mps2, grip.traction_mps2)):
+        return ()
+    accel = sig.derivative("speed", "meas", 1)
+    _, _, speed = sig.series("speed")
+    _, _, turn = sig.series("turn")
+    peaks = []
+    for what, values, tip, edge in (
+            ("acceleration", accel, grip.backward_tip_mps2, "tipping over the back"),
+            ("deceleration", -accel, grip.forward_tip_mps2, "tipping over the front"),
+            ("sideways acceleration", np.abs(speed * turn), grip.sideways_tip_mps2, "tipping sideways")):
+        finite = values[np.isfinite(values)]
+        if finite.size == 0:
+            continue
+        limit, name = (tip, edge) if tip <= grip.traction_mps2 else (grip.traction_mps2, "traction")
+        peaks.append(BodyPeak(what, max(0.0, float(np.max(finite))), name, limit))
+    return tuple(peaks)
+
+
+def _number(table: dict[str, object], key: str, default: float) -> float:
+    value = table.get(key, default)
+    return float(value) if isinstance(value, int | float) and not isinstance(value, bool) \
+        and math.isfinite(value) else default
+
+
+def _tuning(rec: Recording, tau_c_s: float | None, notes: list[str]) -> Tuning | None:
+    """Wheel speed loop suggestions when the recording has open-loop wheel steps (the `identify` program); else
+    None. Open loop means the profile's [units] unit is "duty": the command is then what the motor gets."""
+    wheel_segments = [seg for seg in rec.segments if seg.bypass and seg.axis in ("left", "right")
+                      and seg.kind in ("step", "ramp")]
+    steps = [seg for seg in wheel_segments if seg.kind == "step" and seg.start != seg.end]
+    if not steps:
+        return None
+    units = _profile_table(rec, "units")
+    full_duty = _number(units, "full_duty_radps", 0.0)
+    if units.get("unit") != "duty" or full_duty <= 0.0:
+        if rec.program == "identify":
+            notes.append(f"no wheel speed loop suggestions: the run's [units] unit is {units.get('unit', 'unknown')!r}"
+                         ', so the firmware closed its own loop; identify the motors open loop (unit = "duty")')
+        return None
+    t = rec.t
+    commanded = np.abs(rec.data["left_cmd_radps"]) + np.abs(rec.data["right_cmd_radps"])
+    moved = np.flatnonzero(commanded > 0.0)
+    at_rest = t < (t[moved[0]] if moved.size else t[-1])
+    period = 1.0 / _number(rec.bench or {}, "rate_hz", 1.0 / float(np.median(np.diff(t))))
+    wheels = {}
+    for wheel in ("left", "right"):
+        scale = _number(units, f"trim_{wheel}", 1.0) / full_duty
+        duty = rec.data[f"{wheel}_cmd_radps"] * scale
+        rate = rec.data[f"{wheel}_meas_radps"]
+        mine = [seg for seg in steps if seg.axis == wheel]
+        ramps = [("forwards" if seg.end > 0 else "backwards", seg.t_start_s, seg.t_end_s) for seg in wheel_segments
+                 if seg.axis == wheel and seg.kind == "ramp" and seg.start == 0.0 and seg.end != 0.0]
+        if not mine:
+            continue
+        wheels[wheel] = tune_wheel(
+            wheel, t, duty, rate,
+            [DutyStep(seg.index, seg.name, seg.t_start_s + seg.lead_s, seg.t_end_s, seg.start * scale,
+                      seg.end * scale) for seg in mine],
+            ramps, rest_band(rate[at_rest]), period, tau_c_s, scale)
+    notes += [f"no {tuned.wheel} wheel loop gains: {'; '.join(tuned.problems)}" for tuned in wheels.values()
+              if tuned.problems]
+    return Tuning(wheels, period, tau_c_s, _number(units, "gear_ratio", 1.0), _number(units, "ticks_per_rev", 0.0))
 
 
 def _profile(rec: Recording) -> dict[str, Any]:
@@ -407,8 +529,64 @@ def _figures(rec: Recording, report: Report, out: Path) -> list[Path]:
     axs[1].legend(loc="upper right", fontsize=8)
     mark(axs[1])
     finish(fig, FIGURES[2], "tracking error")
+    if report.tuning is not None and report.tuning.wheels:
+        fig = _tuning_figure(plt, rec, report.tuning)
+        finish(fig, TUNING_FIGURE, "open-loop steps and their first-order-plus-dead-time fits")
     plt.close("all")
     return paths
+
+
+def _tuning_figure(plt: Any, rec: Recording, tuning: Tuning) -> Any:
+    """Per wheel: the measured rate over its identification segments with each step's fitted model, the gains in the
+    title, and a close-up of the first step between moving levels (the samples against the model)."""
+    wheels = list(tuning.wheels.values())
+    fig, axs = plt.subplots(len(wheels), 2, figsize=(12, 3.2 * len(wheels) + 1), squeeze=False,
+                            gridspec_kw={"width_ratios": [3, 1]})
+    t = rec.t
+    for (ax, close), wheel in zip(axs, wheels):
+        steps = [s for s in wheel.steps if s.fit is not None]
+        if not steps:
+            continue
+        start = min(seg.t_start_s for seg in rec.segments if seg.axis == wheel.wheel)
+        rows = (t >= start) & (t <= steps[-1].step.t_end_s)
+        rate = rec.data[f"{wheel.wheel}_meas_radps"]
+        duty = rec.data[f"{wheel.wheel}_cmd_radps"] * wheel.duty_per_command
+        ax.plot(t[rows], rate[rows], color="0.5", lw=0.8, label="measured")
+        zoomed = False
+        for i, step_fit in enumerate(steps):
+            step, fit = step_fit.step, step_fit.fit
+            assert fit is not None
+            window = (t >= step.t_start_s - tuning_mod.STEP_LEAD_S) & (t < step.t_end_s)
+            before = window & (t < step.t_start_s)
+            level = float(np.mean(rate[before])) if np.any(before) else 0.0
+            dt = float(np.median(np.diff(t[window])))
+            model = level + analysis.simulate_fopdt(dt, duty[window] - step.duty_before, fit.gain, fit.tau_s,
+                                                    fit.dead_time_s, 0.0)
+            colour = "C3" if step_fit.problems else f"C{i % 3}"
+            ax.plot(t[window], model, "--", lw=1.0, color=colour, label="fits (red: fails its gates)" if i == 0
+                    else None)
+            if step.linear and not zoomed:
+                zoomed = True
+                near = window & (t < step.t_start_s + 6 * fit.lag_s)
+                close.plot(t[near], rate[near], "o", ms=3, color="0.4", label="measured")
+                close.plot(t[near], model[near[window]], "--", color=colour, label="fit")
+                close.axvline(step.t_start_s, color="0.6", lw=0.6, ls=":")
+                close.set_title(f"{step.name}: tau {fit.tau_s * 1e3:.1f} ms, dead time {fit.dead_time_s * 1e3:.1f} "
+                                "ms", fontsize=9)
+                close.set_xlabel("t (s)")
+                close.grid(True, lw=0.3)
+                close.legend(loc="lower right", fontsize=8)
+        gains = wheel.gains
+        ax.set_title(f"{wheel.wheel}: " + (
+            f"gain {wheel.gain:.4g} rad/s per duty, tau {(wheel.tau_s or 0) * 1e3:.1f} ms, dead time "
+            f"{(wheel.dead_time_s or 0) * 1e3:.1f} ms; SIMC Kc {gains.kc:.4g} duty per rad/s, tau_I "
+            f"{gains.tau_i_s * 1e3:.1f} ms (tau_c {gains.tau_c_s * 1e3:.1f} ms)" if gains is not None
+            else "no gains: " + "; ".join(wheel.problems)[:140]), fontsize=9)
+        ax.set_ylabel(f"{wheel.wheel} wheel (rad/s)")
+        ax.set_xlabel("t (s)")
+        ax.grid(True, lw=0.3)
+        ax.legend(loc="upper right", fontsize=8)
+    return fig
 
 
 def _save(fig: Any, path: Path, bottom: float = 0.0) -> Path:
@@ -471,13 +649,95 @@ def markdown(report: Report) -> str:
         if report.polarity.candidates:
             lines += ["", "One of these profile changes, after the check that tells them apart (never more than one):",
                       "", "```toml", report.polarity.candidate_blocks().rstrip(), "```"]
+    if report.tuning is not None:
+        lines += ["", *tuning_markdown(report.tuning, Path(report.recording).name)]
+    if report.body:
+        lines += ["", "## Measured peaks against the body's static limits", ""]
+        lines += [f"- {peak.text()}" for peak in report.body]
+        lines += ["", f"The limits are from the profile's [body]: {BODY_CAUTION}"]
     lines += ["", "## Figures", ""]
-    lines += [f"![{Path(f).stem}]({f})" for f in FIGURES]
+    lines += [f"![{Path(f).stem}]({f})" for f in (*FIGURES, *((TUNING_FIGURE,) if report.tuning else ()))]
     return "\n".join(lines) + "\n"
 
 
+def _ms(value: float | None) -> str:
+    return "-" if value is None else f"{value * 1e3:.1f}"
+
+
+def tuning_markdown(tuning: Tuning, source: str) -> list[str]:
+    """The wheel speed loop section: feed-forward, break-away, step fits, SIMC gains, snippets (or why not)."""
+    lines = ["## Wheel speed loop (open-loop identification)", "",
+             "Feed-forward `duty = kS sign(w) + kV w + kA dw/dt` (least squares over "
+             f"{tuning_mod.FF_WINDOW_S:g} s windows in which the wheel turns one way; w in wheel rad/s):", "",
+             "| wheel | kS (duty) | kV (duty per rad/s) | kA (duty per rad/s^2) | R^2 | windows | break-away forwards /"
+             " backwards (duty) | quality gates |", "|---|---|---|---|---|---|---|---|"]
+    for wheel in tuning.wheels.values():
+        ff = wheel.feedforward
+        breaks = " / ".join(_fmt(wheel.break_away.get(way), ".4f") for way in ("forwards", "backwards"))
+        gates = "; ".join(wheel.feedforward_problems) or "pass"
+        if ff is None:
+            lines.append(f"| {wheel.wheel} | - | - | - | - | - | {breaks} | {gates} |")
+        else:
+            lines.append(f"| {wheel.wheel} | {ff.static_duty:.4f} | {ff.duty_per_radps:.5f} | "
+                         f"{ff.duty_per_radps2:.3g} | {ff.r_squared:.5f} | {ff.samples} | {breaks} | {gates} |")
+    lines += ["", "First order plus dead time per step, in deviation from the level before it (\"linear\": between "
+              "two levels turning the wheel the same way, where friction does not change; these give the model):",
+              "", "| wheel | step | duty from -> to | linear | gain (rad/s per duty) | time constant ms | dead time ms "
+              "| R^2 | quality gates |", "|---|---|---|---|---|---|---|---|---|"]
+    for wheel in tuning.wheels.values():
+        for step in wheel.steps:
+            fit, st = step.fit, step.step
+            gates = "; ".join(step.problems) or "pass"
+            numbers = ("- | - | - | -" if fit is None else
+                       f"{fit.gain:.4g} | {fit.tau_s * 1e3:.1f} | {fit.dead_time_s * 1e3:.1f} | {fit.r2:.4f}")
+            lines.append(f"| {wheel.wheel} | {st.name} | {st.duty_before:+.3f} -> {st.duty_after:+.3f} | "
+                         f"{'yes' if st.linear else 'no'} | {numbers} | {gates} |")
+    lines += ["", "PI gains by the SIMC rules (S. Skogestad, \"Simple analytic rules for model reduction and PID "
+              "controller tuning\", Journal of Process Control 13, 2003): Kc = tau / (k (tau_c + theta)), tau_I = "
+              "min(tau, 4 (tau_c + theta)), tau_c = theta unless `--tau-c` sets it. The closed loop then follows about "
+              "e^(-theta s) / (tau_c s + 1): 63 % of a step after theta + tau_c. Sampled: for a loop run once per "
+              f"command period ({tuning.period_s * 1e3:g} ms), with half a period added to the dead time (the "
+              "zero-order hold; common practice), Kp = Kc and Ki T = Kc T / tau_I.", "",
+              "| wheel | model gain | tau ms | theta ms | tau_c ms | Kc (duty per rad/s) | tau_I ms | "
+              "Ki (duty per rad) | 63 % after ms | sampled Kp | sampled Ki T |", "|---" * 11 + "|"]
+    for wheel in tuning.wheels.values():
+        g, d = wheel.gains, wheel.gains_sampled
+        if g is None or d is None:
+            lines.append(f"| {wheel.wheel} | {_fmt(wheel.gain, '.4g')} | {_ms(wheel.tau_s)} | "
+                         f"{_ms(wheel.dead_time_s)} | no gains: {'; '.join(wheel.problems)} |||||||")
+            continue
+        kp, ki_t = d.per_period(tuning.period_s)
+        lines.append(f"| {wheel.wheel} | {wheel.gain:.4g} | {_ms(wheel.tau_s)} | {_ms(wheel.dead_time_s)} | "
+                     f"{_ms(g.tau_c_s)} | {g.kc:.4g} | {_ms(g.tau_i_s)} | {g.ki:.4g} | "
+                     f"{_ms((wheel.dead_time_s or 0.0) + g.tau_c_s)} | {kp:.4g} | {ki_t:.4g} |")
+    ready = tuning.ready
+    if ready:
+        lines += ["", "In the firmware's speed unit (the sampled gains; the feed-forward per unit too):", "",
+                  "| wheel | speed unit | Kp (duty per unit) | Ki T (duty per unit) | kV (duty per unit) | "
+                  "kA (duty per unit/s) |", "|---|---|---|---|---|---|"]
+        for suggestion in ready:
+            for name, _, per_radps in tuning.firmware_units():
+                kp, ki_t = suggestion.sampled.in_unit(per_radps).per_period(tuning.period_s)
+                lines.append(f"| {suggestion.wheel.wheel} | {name} | {kp:.4g} | {ki_t:.4g} | "
+                             f"{suggestion.ff.duty_per_radps / per_radps:.4g} | "
+                             f"{suggestion.ff.duty_per_radps2 / per_radps:.4g} |")
+    snippet, header = tuning.sim_snippet(), tuning.c_header(source)
+    if snippet and header:
+        lines += ["", "To try them on the simulated robot first (`[sim]`, with the profile's motor constants):", "",
+                  "```toml", snippet.rstrip(), "```", "",
+                  f"For the firmware ({TUNING_HEADER}, also written beside this summary):", "",
+                  "```c", header.rstrip(), "```"]
+    else:
+        lines += ["", "No gains: a fit they would rest on fails its quality gates (see the notes and the tables "
+                  "above). Check polarity first (the `polarity` program), that the wheels are off the ground and "
+                  "turn freely, that the profile's [units] unit is \"duty\" and full_duty_radps right, then run "
+                  "`identify` again."]
+    return lines
+
+
 def write_report(rec: Recording, report: Report, out: Path) -> list[Path]:
-    """summary.md, report.json and the figures into `out`, all of them or none.
+    """summary.md, report.json and the figures (and wheel_loop.h when an identification run gives gains) into
+    `out`, all of them or none.
 
     Everything is written first into a hidden folder inside `out` (each file whole, console/files.py); only when all
     are there are they renamed into place, so a failure on the way (a full disk, a signal) leaves no new file. A
@@ -485,15 +745,19 @@ def write_report(rec: Recording, report: Report, out: Path) -> list[Path]:
     created = make_folders(out)
     staging: Path | None = None
     try:
-        for name in (*FIGURES, "report.json", "summary.md"):
+        header = report.tuning.c_header(Path(report.recording).name) if report.tuning else None
+        extra = ((TUNING_FIGURE,) if report.tuning else ()) + ((TUNING_HEADER,) if header else ())
+        for name in (*FIGURES, "report.json", "summary.md", *extra):
             check_output(out / name)
         try:
             staging = Path(tempfile.mkdtemp(dir=out, prefix=".report-"))
         except OSError as error:
             raise OutputError(str(out), f"cannot be written ({reason(error)})") from None
         staged = _figures(rec, report, staging)
-        for name, text in (("report.json", json.dumps(report.to_json(), indent=2) + "\n"),
-                           ("summary.md", markdown(report))):
+        texts = [("report.json", json.dumps(report.to_json(), indent=2) + "\n"), ("summary.md", markdown(report))]
+        if header:
+            texts.append((TUNING_HEADER, header))
+        for name, text in texts:
             staged.append(write_atomic(staging / name, text))
         paths = []
         for path in staged:

@@ -197,20 +197,22 @@ class _DrivenWheel(_DelayLine):
         self.integral = 0.0
 
     def run(self, t: float, h: float, n: int, command: float) -> list[float]:
-        """n sub-steps of h from time t, `command` arriving at t: the mean wheel rate over each sub-step."""
+        """n sub-steps of h from time t, `command` arriving at t: the mean wheel rate over each sub-step.
+
+        The drive's dead time delays the duty on its way to the motor, so under the PI it sits inside the loop, where
+        a firmware's speed loop meets it (and where the SIMC rules account for it)."""
         means = []
         for k in range(n):
-            reference = self._delayed(t + k * h, command)
             if self.pi is None:
-                duty = reference * self.per_radps
+                duty = command * self.per_radps
             else:
                 kp, ki, ff_ks, ff_kv = self.pi
-                error = reference - self.rate
-                feed = (math.copysign(ff_ks, reference) if reference != 0.0 else 0.0) + ff_kv * reference
+                error = command - self.rate
+                feed = (math.copysign(ff_ks, command) if command != 0.0 else 0.0) + ff_kv * command
                 duty = feed + kp * error + self.integral
                 if -1.0 < duty < 1.0:
                     self.integral += ki * error * h
-            duty = max(-1.0, min(1.0, duty))
+            duty = self._delayed(t + k * h, max(-1.0, min(1.0, duty)))
             self.rate, travelled = self.motor.step(self.rate, duty, h)
             self.angle += travelled
             means.append(travelled / h)

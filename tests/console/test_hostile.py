@@ -293,6 +293,10 @@ CASES = [
     Case("sidecar nested 100000 deep", ("report", REC, "-o", "{tmp}/report"), 2, "rec.csv.json: file = 'rec.csv.json'"
          ": a readable JSON sidecar (RecursionError)", {"rec.csv": recording(),
                                                          "rec.csv.json": "[" * 100000 + "]" * 100000}),
+    Case("report --tau-c 0", ("report", REC, "-o", "{tmp}/report", "--tau-c", "0"), 2,
+         "--tau-c = 0.0: a time > 0 and <= 60 s", {"rec.csv": recording()}),
+    Case("report --tau-c nan", ("report", REC, "-o", "{tmp}/report", "--tau-c", "nan"), 2, "--tau-c = nan",
+         {"rec.csv": recording()}),
     Case("recording is a FIFO", ("report", "{tmp}/pipe", "-o", "{tmp}/report"), 2, "is a FIFO", {"pipe": "fifo:"}),
     # -- recordings (replay) ------------------------------------------------------------------------------------------
     Case("replay a request trace", ("replay", T), 2, "trace.csv: header = 't_s,v_mps,omega_radps': a diffdeck "

@@ -14,10 +14,10 @@ from pathlib import Path
 import numpy as np
 import pytest
 
+from console.bench.polarity import record_observations
 from console.bench.program import builtin, load_program
 from console.bench.recording import read_recording
 from console.bench.report import FIGURES, analyze, write_report
-from console.bench.polarity import record_observations
 from console.bench.run import BenchRun, bench_sidecar_path
 from console.bench.tomledit import edit_toml
 from console.core.safety import SafetyState, StopCause

@@ -63,6 +63,33 @@ def test_chirp_sweeps_between_its_frequencies() -> None:
     assert 1 / (2 * np.diff(crossings[-3:]).mean()) == pytest.approx(seg.f1_hz, rel=0.03)
 
 
+def test_identify_steps_each_wheel_both_ways_within_the_limits_around_the_shaper() -> None:
+    """The open-loop identification: every level within the wheel-rate limit (so within duty 1 on a duty profile,
+    whose full_duty_radps is at least that limit), one wheel at a time, each way at three amplitudes and a slow ramp
+    from rest, wheels-up caution in its description, bounded in time."""
+    profile = load_profile(ROOT / "profiles" / "wren-open.toml")
+    program = builtin("identify")
+    assert program.bypasses and all(seg.bypass for seg in program.segments)
+    assert "WHEELS OFF THE GROUND" in program.description
+    assert program.duration_s <= 90.0
+    samples = BoundProgram(program, profile.envelope).sample(0.01)
+    assert samples.wheels.all()
+    left, right = samples.first, samples.second                  # wheel requests: rad/s per wheel
+    top = profile.limits.wheel_rate_radps
+    duty = np.concatenate([left, right]) / profile.units.full_duty_radps
+    assert np.max(np.abs(np.concatenate([left, right]))) <= top * (1 + 1e-9) and np.max(np.abs(duty)) <= 1.0
+    assert not np.any((np.abs(left) > 1e-9) & (np.abs(right) > 1e-9))          # one wheel at a time
+    for wheel, rates in (("left", left), ("right", right)):
+        for sign in (1.0, -1.0):
+            levels = {round(float(x) / top, 6) for x in rates if x * sign > 1e-9}
+            steps = [seg for seg in program.segments if seg.axis.value == wheel and seg.kind.value == "step"
+                     and sign * seg.end.value > 0]
+            assert len(steps) >= 3 and len({seg.end.value for seg in steps}) >= 3
+            assert max(abs(level) for level in levels) == pytest.approx(0.75)
+        ramps = [seg for seg in program.segments if seg.axis.value == wheel and seg.kind.value == "ramp"]
+        assert sorted(seg.end.value for seg in ramps) == [-20.0, 20.0] and all(seg.start.value == 0 for seg in ramps)
+
+
 BAD = [
     ("[[segment]]\nkind = 'jump'\nduration_s = 1\n", "segment[0].kind", 'one of "hold", "step"'),
     ("[[segment]]\nkind = 'step'\nto = 0.2\n", "segment[0].duration_s", "a number > 0"),

@@ -14,6 +14,7 @@ Sources:
 from __future__ import annotations
 
 import math
+from pathlib import Path
 
 import numpy as np
 import pytest
@@ -22,7 +23,11 @@ from scipy import signal
 from scipy.integrate import solve_ivp
 from scipy.interpolate import pade
 
-from console.bench.tuning import fit_feedforward, simc_pi
+from console.bench.program import BoundProgram, builtin
+from console.bench.tuning import DutyStep, fit_feedforward, simc_pi, tune_wheel
+from console.profile import load_profile
+
+ROOT = Path(__file__).resolve().parents[3]
 
 
 def test_simc_rules_worked_by_hand() -> None:
@@ -129,3 +134,54 @@ def test_feedforward_fit_recovers_a_dc_motor_integrated_by_scipy() -> None:
 def test_feedforward_needs_moving_samples() -> None:
     with pytest.raises(ValueError, match="moving samples"):
         fit_feedforward([0.1, 0.2], [0.0, 0.0], [0.0, 0.0])
+
+
+def _identify_rows(ks: float, kv: float, ka: float, drag: float, dead_s: float = 0.008
+                   ) -> tuple[np.ndarray, np.ndarray, np.ndarray, list[DutyStep], list[tuple[str, float, float]]]:
+    """The left wheel's part of the `identify` program (duty = wheel rad/s / 27) on a motor with quadratic drag,
+    kA dw/dt = d(t - dead) - kS sign(w) - kV w - drag w |w|, integrated by scipy (friction smoothed by tanh), sampled
+    every 10 ms."""
+    profile = load_profile(ROOT / "profiles" / "wren-open.toml")
+    bound = BoundProgram(builtin("identify"), profile.envelope)
+    segments = [b for b in bound.segments if b.segment.axis.value == "left"]
+    end = segments[-1].t_end_s
+    t = np.arange(0.0, end, 0.01)
+    samples = bound.sample(0.01)
+    duty = samples.first[: t.size] / 27.0
+
+    def wheel(time: float, state: np.ndarray) -> list[float]:
+        w = state[0]
+        held = duty[min(int((time - dead_s) / 0.01), t.size - 1)] if time >= dead_s else 0.0
+        return [(held - ks * math.tanh(w / 1e-3) - kv * w - drag * w * abs(w)) / ka]
+
+    rate = solve_ivp(wheel, (0.0, float(t[-1])), [0.0], t_eval=t, max_step=1e-3, rtol=1e-7, atol=1e-9).y[0]
+    steps = [DutyStep(b.segment.index, b.segment.name, b.t_start_s, b.t_end_s, b.start / 27.0, b.end / 27.0)
+             for b in segments if b.segment.kind.value == "step"]
+    ramps = [("forwards" if b.end > 0 else "backwards", b.t_start_s, b.t_end_s) for b in segments
+             if b.segment.kind.value == "ramp"]
+    return t, duty, rate, steps, ramps
+
+
+def test_a_motor_that_is_not_first_order_gets_no_gains() -> None:
+    # the demo cart's motor ([DC] rearranged, see test_tuning's sources): kS 0.0155, kV 0.0365, kA 0.00116
+    t, duty, rate, steps, ramps = _identify_rows(0.0155, 0.0365, 0.00116, 0.0)
+    linear = tune_wheel("left", t, duty, rate, steps, ramps, 0.0, 0.01)
+    assert not linear.problems and linear.gains is not None
+    assert linear.tau_s == pytest.approx(0.00116 / 0.0365, rel=0.1)
+    # quadratic drag: a step between moving levels sees the local slope 1 / (kV + 2 drag w), which falls with the
+    # amplitude, and a straight line through the curve duty(w) meets w = 0 below zero (a negative kS)
+    ks, kv, drag = 0.0155, 0.0365, 0.006
+    t, duty, rate, steps, ramps = _identify_rows(ks, kv, 0.00116, drag)
+    curved = tune_wheel("left", t, duty, rate, steps, ramps, 0.0, 0.01)
+
+    def steady(d: float) -> float:      # kS + kV w + drag w^2 = d, the positive root
+        return (-kv + math.sqrt(kv * kv + 4 * drag * (d - ks))) / (2 * drag)
+
+    levels = [level / 27.0 for level in (5.0, 10.0, 15.0)]      # 25, 50, 75 % of Wren's 20 rad/s, as duties
+    gains = [(steady(b) - steady(a)) / (b - a) for a, b in zip(levels, levels[1:])]
+    assert gains[0] / gains[1] > 1.25                            # the physics: more than the gate's 25 %
+    slopes = sorted((s.fit.gain for s in curved.steps if s.step.linear and s.fit is not None), reverse=True)
+    assert slopes[0] == pytest.approx(gains[0], rel=0.1) and slopes[-1] == pytest.approx(gains[1], rel=0.1)
+    assert curved.gains is None
+    assert any("not linear over this range" in problem for problem in curved.problems)
+    assert any("kS" in problem and "< 0" in problem for problem in curved.feedforward_problems)

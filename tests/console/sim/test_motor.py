@@ -39,7 +39,9 @@ def reference(motor: DcMotor, duties: list[float], dt: float, start: float = 0.0
 
 
 @settings(max_examples=25, deadline=None)
-@given(st.lists(st.floats(-1.0, 1.0), min_size=1, max_size=8), st.sampled_from([0.001, 0.01, 0.05]))
+# no subnormal duties: the reference integrator returns nan for a duty of 5e-324 (a duty on the wire has 4 decimals)
+@given(st.lists(st.floats(-1.0, 1.0, allow_subnormal=False), min_size=1, max_size=8),
+       st.sampled_from([0.001, 0.01, 0.05]))
 def test_the_closed_form_follows_the_integrated_equation(duties: list[float], dt: float) -> None:
     ours, rate = [], 0.0
     for duty in duties:
