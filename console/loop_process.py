@@ -47,7 +47,6 @@ if TYPE_CHECKING:
 
     from console.profile import Profile
     from console.session import RequestSource
-    from console.ui.trace import KeyWireTrace
 
 SNAPSHOT_HZ = 30.0
 """Snapshots sent to the parent per second at most: the console renders at <= 30 Hz, more would be pickled for
@@ -73,7 +72,6 @@ class _Options:
     operator_timeout_s: float | None
     ui_timeout_s: float | None
     snapshot_hz: float
-    trace_wire: bool
     parent_pid: int
     source: RequestSource | None = None
 
@@ -122,19 +120,13 @@ def _has_room(conn: Connection) -> bool:
     return bool(select.select([], [conn.fileno()], [], 0.0)[1])
 
 
-def _build(profile: Profile, options: _Options) -> tuple[ControlLoop, Any, Any]:
-    """(loop, recorder or None, wire trace or None); raises InputError / LinkLost with the link closed again."""
+def _build(profile: Profile, options: _Options) -> tuple[ControlLoop, Any]:
+    """(loop, recorder or None); raises InputError / LinkLost with the link closed again."""
     from console.links import Link, open_link
     from console.record import Recorder
 
     link = open_link(profile.link.url, profile)
     sim, transport = link.sim, link.transport
-    trace = None
-    if options.trace_wire:
-        from console.ui.trace import KeyWireTrace
-
-        trace = KeyWireTrace(os.devnull)             # only its wire list is used: the parent saves the file
-        transport = trace.wrap(transport)
     recorder = None
     if options.record_path is not None:
         try:
@@ -144,16 +136,13 @@ def _build(profile: Profile, options: _Options) -> tuple[ControlLoop, Any, Any]:
             raise InputError("recording", "path", options.record_path,
                              f"cannot be written ({error.strerror or error})") from None
     def reopen() -> Link:
-        """The same URL again, after a link loss (reconnect), traced as the first one was."""
-        again = open_link(profile.link.url, profile)
-        if trace is not None:
-            again.transport = trace.wrap(again.transport)
-        return again
+        """The same URL again, after a link loss (reconnect)."""
+        return open_link(profile.link.url, profile)
 
     loop = ControlLoop(profile, transport, WallClock(), sim=sim, recorder=recorder,
                        operator_timeout_s=options.operator_timeout_s, ui_timeout_s=options.ui_timeout_s,
                        url=options.url, reopen=reopen, source=options.source)
-    return loop, recorder, trace
+    return loop, recorder
 
 
 def _endings() -> int:
@@ -224,7 +213,7 @@ def _child_main(conn: Connection, profile: Profile, options: _Options) -> None:
     for ending in ENDING_SIGNALS:
         signal.signal(ending, _on_ending_signal)
     try:
-        loop, recorder, trace = _build(profile, options)
+        loop, recorder = _build(profile, options)
     except Exception as error:   # noqa: BLE001 - every start-up error goes back to the parent, which raises it
         conn.send(("error", _portable(error)))
         return
@@ -249,7 +238,7 @@ def _child_main(conn: Connection, profile: Profile, options: _Options) -> None:
         sidecar = str(recorder.close(stats, link)) if recorder is not None else None
         if asked:
             try:
-                conn.send(("closed", loop.snapshot(), stats, link, sidecar, trace.wire if trace is not None else []))
+                conn.send(("closed", loop.snapshot(), stats, link, sidecar))
             except OSError:
                 pass
         conn.close()
@@ -263,13 +252,12 @@ class LoopProcess:
     `request / request_wheels / arm / stop / operator_alive / ui_alive` send one message each and never block on the
     child; `snapshot()` returns the newest snapshot received. Build it before the UI starts (start-up errors are
     raised here), call `start()` when the screen is up and `close()` at the end (controlled stop, recording closed).
-    `trace`: a KeyWireTrace whose `wire` list receives the child's transport writes when the proxy closes.
     `source`: a RequestSource, pickled into the child and polled there every cycle (console.session).
     """
 
     def __init__(self, profile: Profile, *, url: str | None = None, record_path: str | Path | None = None,
                  operator_timeout_s: float | None = None, ui_timeout_s: float | None = None,
-                 trace: KeyWireTrace | None = None, snapshot_hz: float = SNAPSHOT_HZ,
+                 snapshot_hz: float = SNAPSHOT_HZ,
                  start_timeout_s: float = START_TIMEOUT_S, source: RequestSource | None = None) -> None:
         self.profile = profile
         self.url = url if url is not None else profile.link.url
@@ -277,7 +265,6 @@ class LoopProcess:
         self.sidecar_path: Path | None = None
         self.failure: BaseException | None = None
         self.scheduling = "not started"
-        self._trace = trace
         self._final: tuple[LoopStats, LinkStats] | None = None
         self._send_lock = threading.Lock()
         self._close_lock = threading.Lock()     # a second close() (signal thread, then the verb) waits for the first
@@ -285,7 +272,7 @@ class LoopProcess:
         self._started = False
         self._closed = False
         options = _Options(self.url, None if record_path is None else str(record_path), operator_timeout_s,
-                           ui_timeout_s, snapshot_hz, trace is not None, os.getpid(), source)
+                           ui_timeout_s, snapshot_hz, os.getpid(), source)
         context = multiprocessing.get_context("spawn")
         self._conn, child_conn = context.Pipe(duplex=True)
         self._process = context.Process(target=_child_main, args=(child_conn, profile, options),
@@ -419,13 +406,10 @@ class LoopProcess:
             pass
         self._ended()
 
-    def _closed_by_child(self, snapshot: Snapshot, stats: LoopStats, link: LinkStats, sidecar: str | None,
-                         wire: list[tuple[float, str]]) -> None:
+    def _closed_by_child(self, snapshot: Snapshot, stats: LoopStats, link: LinkStats, sidecar: str | None) -> None:
         self._snapshot = snapshot
         self._final = (stats, link)
         self.sidecar_path = Path(sidecar) if sidecar is not None else None
-        if self._trace is not None:
-            self._trace.wire.extend(wire)
 
     def _ended(self) -> None:
         """The child went away unasked: a stopped snapshot with the event, and `failure` set."""

@@ -28,7 +28,6 @@ from console.ui.keys import APP_BINDINGS, SCREEN_BINDINGS
 from console.ui.monitor import MonitorScreen
 from console.ui.screens import CautionScreen, HelpScreen, Overlay, SetpointScreen
 from console.ui.signals import exit_on_ending_signals
-from console.ui.trace import KeyWireTrace
 from console.ui.widgets import (
     AxisGauge,
     EventLog,
@@ -285,7 +284,7 @@ class DriveApp(App[int]):
     BINDINGS = APP_BINDINGS
 
     def __init__(self, loop: ControlLoop | LoopProcess, profile: Profile, clock: Clock, settings: DriveSettings, *,
-                 real_link: bool, render_hz: float = RENDER_HZ, trace: KeyWireTrace | None = None,
+                 real_link: bool, render_hz: float = RENDER_HZ,
                  on_ready: Callable[[], None] | None = None,
                  on_ending_signal: Callable[[int], None] | None = None) -> None:
         super().__init__()
@@ -295,7 +294,6 @@ class DriveApp(App[int]):
         self.drive = DriveInput(profile.envelope, settings)
         self.real_link = real_link
         self.render_hz = min(render_hz, RENDER_HZ_MAX)
-        self.trace = trace
         self.on_ready = on_ready
         self.on_ending_signal = on_ending_signal
         self.confirmed = not real_link
@@ -373,15 +371,13 @@ class DriveApp(App[int]):
         t_s = self.last_snapshot.t_s if self.last_snapshot is not None else 0.0
         self.drive_screen.note(t_s, text)
 
-    def _key(self, name: str) -> None:
+    def _key(self) -> None:
         self.loop.operator_alive()
         self.drive.present(self.clock.now())
-        if self.trace is not None:
-            self.trace.key(name)
 
     # ---- operator actions
     def action_stop(self, kind: str) -> None:
-        self._key(f"stop {kind}")
+        self._key()
         self.drive.clear()
         self.drive.cancel_window()
         self.loop.stop(StopKind(kind), StopCause.OPERATOR)
@@ -389,7 +385,7 @@ class DriveApp(App[int]):
     def action_quit_console(self) -> None:
         """At rest: quit now. Moving: a controlled stop, "stopping ..." until at rest, then quit; q again while
         stopping: a fast stop and quit now (the verb still waits for rest before it closes the loop)."""
-        self._key("quit")
+        self._key()
         self.drive.clear()
         self.drive.cancel_window()
         if self.quitting:
@@ -405,7 +401,7 @@ class DriveApp(App[int]):
         self.tick()
 
     def arm_open(self) -> None:
-        self._key("arm open")
+        self._key()
         if not self.confirmed:
             return
         snap = self.last_snapshot
@@ -420,7 +416,7 @@ class DriveApp(App[int]):
         self.tick()
 
     def reconnect_open(self) -> None:
-        self._key("reconnect open")
+        self._key()
         snap = self.last_snapshot
         if snap is None or snap.link.lost is None:
             self._note("the link is up: nothing to reconnect")
@@ -431,11 +427,11 @@ class DriveApp(App[int]):
 
     def arm_confirm(self) -> None:
         if self.drive.confirm(Confirm.RECONNECT, self.clock.now()):
-            self._key("reconnect confirm")
+            self._key()
             self.loop.reconnect()
             self._note("reopening the link; arm again once telemetry is back")
             return
-        self._key("arm confirm")
+        self._key()
         if not self.drive.confirm(Confirm.ARM, self.clock.now()):
             self._note("enter arms only right after a")
             return
@@ -446,7 +442,7 @@ class DriveApp(App[int]):
 
     def drive_key(self, name: str, change: Callable[[DriveInput, float], object]) -> None:
         """A driving key: only when armed; sends the new request at once (not at the next tick)."""
-        self._key(name)
+        self._key()
         snap = self.last_snapshot
         if snap is None or snap.state is not SafetyState.ARMED:
             self._note("not armed: a then enter arms")
@@ -461,15 +457,15 @@ class DriveApp(App[int]):
             self.loop.request(*self.drive.request)
 
     def keepalive(self) -> None:
-        self._key("keep-alive")
+        self._key()
 
     def monitor_open(self) -> None:
-        self._key("frames")
+        self._key()
         self.push_screen(MonitorScreen(self.profile.link))
 
     def setpoint_open(self) -> None:
         """Typed setpoints hold only in latched mode (hold mode would let them lapse at once) and only armed."""
-        self._key("setpoint")
+        self._key()
         snap = self.last_snapshot
         if snap is None or snap.state is not SafetyState.ARMED:
             self._note("not armed: a then enter arms")
@@ -487,7 +483,7 @@ class DriveApp(App[int]):
     def _setpoint_typed(self, values: tuple[float, float] | None) -> None:
         if values is None:
             return
-        self._key("setpoint confirm")
+        self._key()
         snap = self.last_snapshot
         if snap is None or snap.state is not SafetyState.ARMED or self.drive.mode is not DriveMode.LATCHED:
             self._note("setpoint dropped: no longer armed in latched mode")
@@ -499,12 +495,12 @@ class DriveApp(App[int]):
         self._note(f"setpoint {sent[0]:+.3f} m/s, {sent[1]:+.3f} rad/s{clamped}")
 
     def scale_steps(self, coarser: bool) -> None:
-        self._key("steps")
+        self._key()
         if self.drive.scale_steps(coarser):
             self._note(f"steps {self.drive.speed_step_mps:g} m/s, {self.drive.turn_step_radps:g} rad/s")
 
     def toggle_mode(self) -> None:
-        self._key("mode")
+        self._key()
         mode = self.drive.toggle_mode()
         self.loop.request(0.0, 0.0)
         self._note(f"{mode.value} mode; request to zero")

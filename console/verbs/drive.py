@@ -28,7 +28,6 @@ from console.profile import Profile, load_profile
 from console.record import default_path
 from console.session import bring_to_rest
 from console.ui.driving import DriveMode, DriveSettings
-from console.ui.trace import KeyWireTrace
 from shaping.shaper import StopKind
 
 if TYPE_CHECKING:
@@ -118,9 +117,8 @@ def run(args: argparse.Namespace) -> int:
     profile = profile_for_link(args, load_profile(args.profile))
     settings = settings_from(args, profile)
     source = source_from_option(args.input, profile)     # checked (and found) here: one line, exit 2, nothing opens
-    trace = KeyWireTrace.from_env()
     # start-up errors (bad URL, link lost on open, unwritable recording) are raised here, before any screen
-    loop = LoopProcess(profile, url=profile.link.url, ui_timeout_s=UI_TIMEOUT_S, trace=trace,
+    loop = LoopProcess(profile, url=profile.link.url, ui_timeout_s=UI_TIMEOUT_S,
                        operator_timeout_s=settings.keepalive_s,
                        record_path=default_path(profile) if records(args, profile) else None,
                        snapshot_hz=RENDER_HZ,    # one snapshot per screen refresh: more would be pickled for nothing
@@ -151,7 +149,7 @@ def run(args: argparse.Namespace) -> int:
 
         threading.Thread(target=shutdown, name="diffdeck-signal-stop", daemon=True).start()
 
-    app = DriveApp(loop, profile, WallClock(), settings, real_link=not is_simulated(profile.link.url), trace=trace,
+    app = DriveApp(loop, profile, WallClock(), settings, real_link=not is_simulated(profile.link.url),
                    on_ready=start_loop, on_ending_signal=stop_on_signal)
     try:
         app.run()
@@ -160,10 +158,6 @@ def run(args: argparse.Namespace) -> int:
         loop.close()                      # controlled stop; the child closes the recording (CSV + sidecar)
         if loop.record_path is not None:
             _say(f"diffdeck drive: recorded {loop.record_path}")
-        if trace is not None:
-            trace.save({"loop": dataclasses.asdict(loop.stats()), "link": dataclasses.asdict(loop.link_stats()),
-                        "events": [(e.t_s, e.text, e.kind) for e in loop.snapshot().events],
-                        "loop_pid": loop.pid})
     if app.ended_by is not None:
         return 128 + app.ended_by         # SIGTERM / SIGHUP: the robot was brought to rest all the same
     if loop.failure is not None:

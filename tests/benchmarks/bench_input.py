@@ -27,9 +27,9 @@ from console.core.safety import SafetyState
 from console.inputs.source import DeviceSource
 from console.loop_process import LoopProcess
 from console.profile import load_profile
-from console.ui.trace import KeyWireTrace
 from shaping.shaper import StopKind
 from tests.benchmarks.bench_loop_process import SETTLED_WAIT_S, _latencies, _ui_load
+from tests.benchmarks.wire import wheel_frame_changes, wire_log
 
 WREN = Path(__file__).resolve().parents[2] / "profiles" / "wren.toml"
 RATE_HZ = 200.0
@@ -71,14 +71,18 @@ class _Pad:
 def run() -> dict:
     duration_s = float(os.environ.get("DIFFDECK_BENCH_INPUT_S", "15"))
     wren = load_profile(WREN)
-    profile = dataclasses.replace(wren, link=dataclasses.replace(wren.link, rate_hz=RATE_HZ, url="sim"))
+    profile = dataclasses.replace(wren, link=dataclasses.replace(wren.link, rate_hz=RATE_HZ, url="trace+sim"))
     period_s = 1.0 / RATE_HZ
     with tempfile.TemporaryDirectory() as folder:
         fifo = Path(folder) / "pad"
         os.mkfifo(fifo)
         fd = os.open(fifo, os.O_RDWR)               # the fake device's writer, open before the loop opens it
-        trace = KeyWireTrace(Path(folder) / "unused.json")
-        proxy = LoopProcess(profile, trace=trace, source=DeviceSource("gamepad", str(fifo), profile))
+        here = os.getcwd()
+        os.chdir(folder)                            # the trace+ link writes its wire log under ./recordings
+        try:
+            proxy = LoopProcess(profile, source=DeviceSource("gamepad", str(fifo), profile))
+        finally:
+            os.chdir(here)
         proxy.start()
         try:
             deadline = time.monotonic() + 30.0
@@ -95,7 +99,8 @@ def run() -> dict:
         finally:
             proxy.close()
             os.close(fd)
-    latency = _latencies(pad.times, trace.wire, period_s)
+        wire = wheel_frame_changes(wire_log(Path(folder)))
+    latency = _latencies(pad.times, wire, period_s)
     return {"rate_hz": RATE_HZ, "duration_s": duration_s, "cpus": os.cpu_count(),
             "load_average_1min": round(os.getloadavg()[0], 2), "event_to_wire": latency,
             "target_p99_ms": (period_s + TARGET_EXTRA_S) * 1e3,

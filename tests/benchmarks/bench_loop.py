@@ -102,7 +102,8 @@ def _virtual_speed(simulated_s: float = 20.0) -> dict[str, float]:
         loop.request(*MANOEUVRE[(k // round(rate)) % len(MANOEUVRE)])
         loop.run_cycles(round(rate))
     wall, cpu = time.perf_counter() - started, time.process_time() - cpu
-    return {"rate_hz": rate, "x_real_time": round(simulated_s / wall, 1), "x_real_time_cpu": round(simulated_s / cpu, 1),
+    return {"rate_hz": rate, "x_real_time": round(simulated_s / wall, 1),
+            "x_real_time_cpu": round(simulated_s / cpu, 1),
             "us_per_cycle": round(wall / cycles * 1e6, 1)}
 
 

@@ -37,10 +37,10 @@ from console.loop_process import LoopProcess
 from console.profile import Profile, load_profile
 from console.record import Recorder
 from console.sim.firmware import SimRobot
-from console.ui.trace import KeyWireTrace
 from shaping.shaper import StopKind
 from tests.benchmarks.bench_loop import _bare_sleeper
 from tests.benchmarks.figures import loop_timing
+from tests.benchmarks.wire import traced, wheel_frame_changes, wire_log
 
 WREN = Path(__file__).resolve().parents[2] / "profiles" / "wren.toml"
 RATE_HZ = 200.0
@@ -132,25 +132,31 @@ def _drive(loop: Any, duration_s: float) -> _Requester:
 
 
 def _in_child(profile: Profile, duration_s: float, folder: Path) -> dict[str, object]:
-    trace = KeyWireTrace(folder / "unused.json")
-    started = time.perf_counter()
-    proxy = LoopProcess(profile, record_path=folder / "child.csv", trace=trace)
-    ready_s = time.perf_counter() - started
+    traced_profile = dataclasses.replace(profile, link=dataclasses.replace(profile.link, url="trace+sim"))
+    here = os.getcwd()
+    os.chdir(folder)                               # the trace+ link writes its wire log under ./recordings
+    try:
+        started = time.perf_counter()
+        proxy = LoopProcess(traced_profile, record_path=folder / "child.csv")
+        ready_s = time.perf_counter() - started
+    finally:
+        os.chdir(here)
     proxy.start()
     try:
         requester = _drive(proxy, duration_s)
     finally:
         proxy.close()
-    out = _figures(proxy.stats(), proxy.scheduling, requester, trace.wire, 1.0 / profile.link.rate_hz)
+    out = _figures(proxy.stats(), proxy.scheduling, requester, wheel_frame_changes(wire_log(folder)),
+                   1.0 / profile.link.rate_hz)
     out["start_up_s"] = round(ready_s, 3)
     return out
 
 
 def _in_thread(profile: Profile, duration_s: float, folder: Path) -> dict[str, object]:
-    trace = KeyWireTrace(folder / "unused.json")
     sim = SimRobot(profile)
     recorder = Recorder(folder / "thread.csv", profile, "sim")
-    loop = ControlLoop(profile, trace.wrap(sim.console_end), WallClock(), sim=sim, recorder=recorder)
+    link = traced(sim.console_end, folder / "thread")
+    loop = ControlLoop(profile, link, WallClock(), sim=sim, recorder=recorder)
     switch = sys.getswitchinterval()
     loop.start()                                   # lowers the process's switch interval: restored below
     try:
@@ -160,7 +166,8 @@ def _in_thread(profile: Profile, duration_s: float, folder: Path) -> dict[str, o
         loop.close()
         recorder.close(loop.stats(), loop.link_stats())
         sys.setswitchinterval(switch)
-    return _figures(loop.stats(), loop.scheduling, requester, trace.wire, 1.0 / profile.link.rate_hz)
+    return _figures(loop.stats(), loop.scheduling, requester, wheel_frame_changes(link.path),
+                    1.0 / profile.link.rate_hz)
 
 
 def _pickle_cost(profile: Profile) -> dict[str, float | int]:
