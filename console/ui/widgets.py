@@ -198,15 +198,24 @@ class LinkPanel(Panel):
     """Link health and loop timing: the first thing to read when the robot does not do what the screen says. The
     rows go by importance (a short panel cuts the last ones): telemetry, battery and robot flags before timing."""
 
+    COUNTS_EVERY_S = 1.0
+    """The frame counters go up every cycle: shown once a second, or every panel repaint would be theirs."""
+
+    def __init__(self, *, id: str | None = None, classes: str | None = None) -> None:
+        super().__init__(id=id, classes=classes)
+        self._counts: tuple[int, int] = (0, 0)
+        self._counts_t_s = -math.inf
+
     def show(self, snap: Snapshot, rate_set_hz: float) -> None:
         link, loop = snap.link, snap.loop
         # shown in coarse steps: the exact jitter of a healthy link is noise, and every change costs a repaint
         age = None if link.telemetry_age_s is None else AGE_STEP_MS * max(1, math.ceil(
             link.telemetry_age_s * 1000.0 / AGE_STEP_MS))
         rtt = None if link.rtt_s is None else round(link.rtt_s * 1000.0)
+        if abs(snap.t_s - self._counts_t_s) >= self.COUNTS_EVERY_S:
+            self._counts, self._counts_t_s = (link.frames_sent, link.telemetry_received), snap.t_s
         self._update((
-            link.url, round(link.rate_hz, 1), rate_set_hz, rtt, age, link.decoder, link.frames_sent,
-            link.telemetry_received,
+            link.url, round(link.rate_hz, 1), rate_set_hz, rtt, age, link.decoder, *self._counts,
             None if snap.battery_v is None else round(snap.battery_v, 1), snap.flags,
             round(loop.period_error_p99_s * 1e3, 2), round(loop.period_error_max_s * 1e3, 2), loop.overruns,
         ))
