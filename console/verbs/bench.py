@@ -16,7 +16,7 @@ from rich.console import Console
 from rich.progress import BarColumn, Progress, TextColumn, TimeRemainingColumn
 
 from console.bench.polarity import OBSERVATIONS, has_pulses, record_observations
-from console.bench.program import BUILTINS, BoundProgram, resolve_program
+from console.bench.program import BUILTINS, BoundProgram, Program, resolve_program
 from console.bench.recording import read_recording
 from console.bench.run import BenchResult, BenchRun
 from console.core.safety import StopCause
@@ -69,6 +69,15 @@ def _say(console: Console, text: str) -> None:
         pass
 
 
+def _bypassing(program: Program) -> str:
+    """Which segments go around the shaper, in a few words: all of them, or up to three by name."""
+    names = [seg.name for seg in program.segments if seg.bypass]
+    if len(names) == len(program.segments):
+        return f"all {len(names)} segments run" if len(names) > 1 else f"segment {names[0]} runs"
+    shown = ", ".join(names[:3]) + (f" and {len(names) - 3} more" if len(names) > 3 else "")
+    return f"segment{'s' if len(names) > 1 else ''} {shown} run{'' if len(names) > 1 else 's'}"
+
+
 def _outcome(result: BenchResult, interrupted: int) -> int:
     """The exit code: errors raised as their one line, else the signal's code, 130 for a program cut short, 0."""
     kept = f"; recording kept in {result.recording}"
@@ -97,8 +106,7 @@ def run(args: argparse.Namespace) -> int:
     url = profile.link.url
     BoundProgram(program, profile.envelope)          # every level checked before anything is asked or opened
     if program.bypasses:
-        names = ", ".join(seg.name for seg in program.segments if seg.bypass)
-        console.print(f"[bold yellow]Caution:[/] segments {names} run AROUND the shaper: no acceleration or jerk "
+        console.print(f"[bold yellow]Caution:[/] {_bypassing(program)} AROUND the shaper: no acceleration or jerk "
                       "limit, only the wheel-rate limit. The motors see raw steps.")
     ui_timeout: float | None = None
     if args.screen:
