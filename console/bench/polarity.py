@@ -17,6 +17,7 @@ from pathlib import Path
 
 import numpy as np
 
+from console.bench.program import Kind
 from console.bench.recording import Recording
 from console.files import write_atomic
 from shaping.units import WheelUnits
@@ -82,9 +83,9 @@ def _pulses(rec: Recording) -> dict[str, list[tuple[float, float, float]]]:
     pulses: dict[str, list[tuple[float, float, float]]] = {"left": [], "right": []}
     segments = rec.segments
     for seg, after in zip(segments, segments[1:]):
-        if seg.axis in WHEELS and seg.kind == "step" and seg.start == 0.0 and seg.end != 0.0 \
-                and after.kind == "hold" and after.start == 0.0:
-            pulses[seg.axis].append((seg.t_start_s, seg.t_end_s, after.t_end_s))
+        if seg.segment.axis.is_wheel and seg.segment.kind is Kind.STEP and seg.start == 0.0 and seg.end != 0.0 \
+                and after.segment.kind is Kind.HOLD and after.start == 0.0:
+            pulses[seg.segment.axis.value].append((seg.t_start_s, seg.t_end_s, after.t_end_s))
     return pulses
 
 

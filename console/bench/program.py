@@ -11,7 +11,7 @@ from __future__ import annotations
 import enum
 import math
 import tomllib
-from dataclasses import dataclass
+from dataclasses import asdict, dataclass, replace
 from pathlib import Path
 from typing import Any
 
@@ -51,6 +51,8 @@ class Kind(enum.Enum):
     RAMP = "ramp"
     CHIRP = "chirp"
     SQUARE = "square"
+    RECORD = "record"
+    """A recording with no program (`play`, `drive`) read back as one stretch: not a kind a program may use."""
 
 
 @dataclass(frozen=True, slots=True)
@@ -73,6 +75,8 @@ class Level:
 
 
 ZERO = Level(0.0)
+LEVEL_FIELDS = ("start", "end", "amplitude", "partner")
+"""The fields of a Segment that are levels as written (resolved into the BoundSegment's fields of the same name)."""
 CHIRP_METHODS = ("linear", "logarithmic")
 
 
@@ -157,7 +161,7 @@ def _table(where: str, name: str, table: object, known: frozenset[str], written_
 def _segment(where: str, index: int, data: object) -> Segment:
     table = _table(where, f"segment[{index}]", data, COMMON_KEYS | frozenset().union(*SEGMENT_KEYS.values()),
                    "a [[segment]] table")
-    kind = Kind(table.text("kind", choices=tuple(k.value for k in Kind)))
+    kind = Kind(table.text("kind", choices=tuple(k.value for k in SEGMENT_KEYS)))
     axis = Axis(table.text("axis", Axis.SPEED.value, choices=tuple(a.value for a in Axis)))
     duration = table.number("duration_s", high=MAX_DURATION_S)
     fields: dict[str, Any] = {}
@@ -469,7 +473,8 @@ def resolve_program(spec: str) -> Program:
 
 @dataclass(frozen=True, slots=True)
 class BoundSegment:
-    """A segment with its levels resolved to SI and its place on the program's time line."""
+    """A segment with its levels resolved to SI and its place on a time line: the program's while it runs, the
+    recording's once read back (`shifted` by the program's start). The one segment type a report reads."""
 
     segment: Segment
     t_start_s: float
@@ -495,6 +500,33 @@ class BoundSegment:
             return self.start + self.amplitude * signal.chirp(tau, seg.f0_hz, seg.duration_s, seg.f1_hz,
                                                               method=seg.method, phi=-90.0)
         return self.start + self.amplitude * signal.square(2.0 * np.pi * tau / seg.period_s)
+
+    def shifted(self, offset_s: float) -> BoundSegment:
+        """The same segment with its times moved by `offset_s` (program time to recording time)."""
+        return replace(self, t_start_s=self.t_start_s + offset_s, t_end_s=self.t_end_s + offset_s)
+
+    def to_json(self) -> dict[str, Any]:
+        """Everything needed to rebuild this segment exactly (`from_json`): the segment as written, its levels as
+        written (`levels`) and resolved (`start`, `end`, `amplitude`, `partner`), and its times."""
+        seg = self.segment
+        return {"index": seg.index, "name": seg.name, "kind": seg.kind.value, "axis": seg.axis.value,
+                "bypass": seg.bypass, "duration_s": seg.duration_s, "t_start_s": self.t_start_s,
+                "t_end_s": self.t_end_s, "start": self.start, "end": self.end, "amplitude": self.amplitude,
+                "partner": self.partner, "lead_s": seg.lead_s, "period_s": seg.period_s, "f0_hz": seg.f0_hz,
+                "f1_hz": seg.f1_hz, "method": seg.method,
+                "levels": {name: asdict(getattr(seg, name)) for name in LEVEL_FIELDS}}
+
+    @classmethod
+    def from_json(cls, data: dict[str, Any]) -> BoundSegment:
+        """The segment `to_json` wrote (KeyError, TypeError or ValueError on anything else)."""
+        levels = data["levels"]
+        written = {name: Level(float(levels[name]["value"]), bool(levels[name]["percent"])) for name in LEVEL_FIELDS}
+        segment = Segment(index=int(data["index"]), name=str(data["name"]), kind=Kind(data["kind"]),
+                          axis=Axis(data["axis"]), duration_s=float(data["duration_s"]), lead_s=float(data["lead_s"]),
+                          f0_hz=float(data["f0_hz"]), f1_hz=float(data["f1_hz"]), method=str(data["method"]),
+                          period_s=float(data["period_s"]), bypass=bool(data["bypass"]), **written)
+        return cls(segment, float(data["t_start_s"]), float(data["t_end_s"]), float(data["start"]),
+                   float(data["end"]), float(data["amplitude"]), float(data["partner"]))
 
     @property
     def extremes(self) -> tuple[float, float]:

@@ -12,6 +12,7 @@ from typing import Any
 
 import numpy as np
 
+from console.bench.program import LEVEL_FIELDS, Axis, BoundSegment, Kind, Segment
 from console.bench.run import bench_sidecar_path
 from console.errors import InputError
 from console.files import PLAIN_NUMBER, read_input
@@ -19,28 +20,12 @@ from console.record import COLUMNS, POSE_COLUMNS, sidecar_path
 
 NUMERIC = tuple(c for c in COLUMNS if c != "state")
 MIN_ROWS = 20
+FORMAT_1 = "diffdeck bench 1"
+"""The first bench sidecar format: its segments are converted in one place (`_from_format_1`)."""
 
 
 class RecordingError(InputError):
     """A recording the report cannot use: file, field, value, what is allowed (exit code 2)."""
-
-
-@dataclass(frozen=True, slots=True)
-class Segment:
-    """A stretch of the recording with what was asked in it (from the bench sidecar, or the whole recording)."""
-
-    index: int
-    name: str
-    kind: str
-    axis: str
-    bypass: bool
-    t_start_s: float
-    t_end_s: float
-    start: float
-    end: float
-    amplitude: float
-    lead_s: float
-    period_s: float
 
 
 @dataclass(frozen=True, slots=True)
@@ -50,7 +35,7 @@ class Recording:
     wheel_radius_m: float | None
     track_width_m: float | None
     top_speed_mps: float | None
-    segments: tuple[Segment, ...]
+    segments: tuple[BoundSegment, ...]   # in recording time: from the bench sidecar, or the whole recording
     program: str | None
     bench: dict[str, Any] | None
 
@@ -156,15 +141,22 @@ def _check_cells(path: Path, body: bytes, columns: list[str], usecols: list[int]
     raise _fail(path, "file", str(path), "a CSV recording numpy can read (this one it cannot; please report it)")
 
 
-def _segments(path: Path, bench: dict[str, Any] | None, t_first: float, t_last: float) -> tuple[Segment, ...]:
+def _segments(path: Path, bench: dict[str, Any] | None, t_first: float, t_last: float) -> tuple[BoundSegment, ...]:
     if bench is None:
-        return (Segment(0, "whole recording", "record", "speed", False, t_first, t_last, 0.0, 0.0, 0.0, 0.0, 0.0),)
+        whole = Segment(0, "whole recording", Kind.RECORD, Axis.SPEED, t_last - t_first)
+        return (BoundSegment(whole, t_first, t_last, 0.0, 0.0, 0.0, 0.0),)
     try:
-        segments = tuple(Segment(int(s["index"]), str(s["name"]), str(s["kind"]), str(s["axis"]), bool(s["bypass"]),
-                                 float(s["t_start_s"]), float(s["t_end_s"]), float(s["start"]), float(s["end"]),
-                                 float(s["amplitude"]), float(s["lead_s"]), float(s["period_s"]))
-                         for s in bench["segments"])
+        written = [_from_format_1(s) if bench.get("format") == FORMAT_1 else s for s in bench["segments"]]
+        segments = tuple(BoundSegment.from_json(s) for s in written)
     except (KeyError, TypeError, ValueError) as error:
         raise _fail(bench_sidecar_path(path), "segments", repr(error)[:60], "the segment list `bench` writes") from None
     # A run stopped early (Ctrl-C) keeps only the segments that began before its end.
     return tuple(s for s in segments if s.t_start_s < t_last)
+
+
+def _from_format_1(segment: dict[str, Any]) -> dict[str, Any]:
+    """A segment of a format-1 bench sidecar in today's shape. Format 1 kept only the resolved levels (they stand
+    in as absolute levels as written), no duration (its times give it) and no chirp frequencies (0, linear)."""
+    return {"duration_s": float(segment["t_end_s"]) - float(segment["t_start_s"]), "f0_hz": 0.0, "f1_hz": 0.0,
+            "method": "linear", "levels": {name: {"value": segment[name], "percent": False} for name in LEVEL_FIELDS},
+            **segment}

@@ -23,7 +23,8 @@ from console.bench import analysis
 from console.bench import tuning as tuning_mod
 from console.bench.analysis import FopdtFit, StepMetrics, SuggestedLimits
 from console.bench.polarity import PolarityReport, check_polarity
-from console.bench.recording import Recording, Segment
+from console.bench.program import BoundSegment, Kind
+from console.bench.recording import Recording
 from console.bench.tuning import DutyStep, Tuning, rest_band, tune_wheel
 from console.errors import OutputError
 from console.files import atomic_output, check_output, make_folders, reason, remove_folders, write_atomic
@@ -176,11 +177,12 @@ class _Signals:
         return self._deriv[key]
 
 
-def _edges(seg: Segment) -> list[float]:
-    if seg.kind == "step":
-        return [seg.t_start_s + seg.lead_s]
-    if seg.kind == "square" and seg.period_s > 0:
-        return list(seg.t_start_s + np.arange(0.0, seg.t_end_s - seg.t_start_s - 1e-9, seg.period_s / 2))
+def _edges(seg: BoundSegment) -> list[float]:
+    written = seg.segment
+    if written.kind is Kind.STEP:
+        return [seg.t_start_s + written.lead_s]
+    if written.kind is Kind.SQUARE and written.period_s > 0:
+        return list(seg.t_start_s + np.arange(0.0, seg.t_end_s - seg.t_start_s - 1e-9, written.period_s / 2))
     return []
 
 
@@ -208,25 +210,26 @@ def _peak(values: np.ndarray | None, rows: np.ndarray) -> float | None:
     return float(np.nanmax(chunk)) if np.any(np.isfinite(chunk)) else None
 
 
-def _step_problem(seg: Segment, m: StepMetrics) -> str | None:
+def _step_problem(seg: BoundSegment, m: StepMetrics) -> str | None:
     """Why a step's metrics do not describe the wheel: the response moved against the request, or hardly at all."""
     asked, moved = m.request_after - m.request_before, m.final - m.initial
     if asked == 0.0:
         return None
     if abs(moved) < analysis.MIN_RESPONSE_SHARE * abs(asked):
-        return (f"segment {seg.index} '{seg.name}': the response did not follow the request step "
+        return (f"segment {seg.segment.index} '{seg.segment.name}': the response did not follow the request step "
                 f"({moved:+.3g} for {asked:+.3g}): no step metrics; check polarity and a dead wheel first")
     if moved * asked < 0.0:
-        return (f"segment {seg.index} '{seg.name}': the response moved against the request step "
+        return (f"segment {seg.segment.index} '{seg.segment.name}': the response moved against the request step "
                 f"({moved:+.3g} for {asked:+.3g}): check polarity first")
     return None
 
 
-def _segment_report(sig: _Signals, seg: Segment) -> tuple[SegmentReport, list[str]]:
+def _segment_report(sig: _Signals, seg: BoundSegment) -> tuple[SegmentReport, list[str]]:
     """The segment's metrics and the notes on steps they could not be measured from."""
     t = sig.t
+    written = seg.segment
     rows = (t >= seg.t_start_s) & (t < seg.t_end_s)
-    axis = seg.axis if sig.axis(seg.axis) is not None else "left"
+    axis = written.axis.value if sig.axis(written.axis.value) is not None else "left"
     req, cmd, meas = sig.series(axis)
     metrics, notes = [], []
     edges = _edges(seg)
@@ -237,8 +240,8 @@ def _segment_report(sig: _Signals, seg: Segment) -> tuple[SegmentReport, list[st
         if after.size == 0:
             continue
         m = analysis.step_metrics(t, meas, edge, float(before[0]), float(after[0]), end)
-        problem = f"segment {seg.index} '{seg.name}': fewer than {analysis.MIN_STEP_SAMPLES} samples after the " \
-                  f"step at {edge:.2f} s: no step metrics" if m is None else _step_problem(seg, m)
+        problem = f"segment {written.index} '{written.name}': fewer than {analysis.MIN_STEP_SAMPLES} samples " \
+                  f"after the step at {edge:.2f} s: no step metrics" if m is None else _step_problem(seg, m)
         if problem is not None and problem not in notes:
             notes.append(problem)
         if m is not None and problem is None:
@@ -249,7 +252,7 @@ def _segment_report(sig: _Signals, seg: Segment) -> tuple[SegmentReport, list[st
     track = (cmd - meas)[rows]
     finite = np.isfinite(track)
     return SegmentReport(
-        seg.index, seg.name, seg.kind, axis, UNITS[axis], seg.bypass, seg.t_start_s, seg.t_end_s,
+        written.index, written.name, written.kind.value, axis, UNITS[axis], written.bypass, seg.t_start_s, seg.t_end_s,
         _median_metrics(metrics), len(metrics),
         _peak(sig.derivative(axis, "meas", 1), rows), _peak(sig.derivative(axis, "meas", 2), rows),
         _peak(sig.derivative(axis, "cmd", 1), rows), _peak(sig.derivative(axis, "cmd", 2), rows),
@@ -305,7 +308,7 @@ def analyze(rec: Recording, speed_error_mps: float | None = None, tau_c_s: float
                                else DEFAULT_SPEED_ERROR_MPS)
         shaped = np.ones(rec.t.size, dtype=bool)
         for seg in rec.segments:
-            if seg.bypass:
+            if seg.segment.bypass:
                 shaped &= ~((rec.t >= seg.t_start_s) & (rec.t < seg.t_end_s + 0.5))   # + the hand-back ramp
         lags = {w: analysis.ramp_lag(rec.t, rec.data[f"{w}_cmd_radps"], rec.data[f"{w}_meas_radps"], shaped)
                 for w in ("left", "right")}
@@ -362,9 +365,9 @@ def _number(table: dict[str, object], key: str, default: float) -> float:
 def _tuning(rec: Recording, tau_c_s: float | None, notes: list[str]) -> Tuning | None:
     """Wheel speed loop suggestions when the recording has open-loop wheel steps (the `identify` program); else
     None. Open loop means the profile's [units] unit is "duty": the command is then what the motor gets."""
-    wheel_segments = [seg for seg in rec.segments if seg.bypass and seg.axis in ("left", "right")
-                      and seg.kind in ("step", "ramp")]
-    steps = [seg for seg in wheel_segments if seg.kind == "step" and seg.start != seg.end]
+    wheel_segments = [seg for seg in rec.segments if seg.segment.bypass and seg.segment.axis.is_wheel
+                      and seg.segment.kind in (Kind.STEP, Kind.RAMP)]
+    steps = [seg for seg in wheel_segments if seg.segment.kind is Kind.STEP and seg.start != seg.end]
     if not steps:
         return None
     units = _profile_table(rec, "units")
@@ -384,15 +387,16 @@ def _tuning(rec: Recording, tau_c_s: float | None, notes: list[str]) -> Tuning |
         scale = _number(units, f"trim_{wheel}", 1.0) / full_duty
         duty = rec.data[f"{wheel}_cmd_radps"] * scale
         rate = rec.data[f"{wheel}_meas_radps"]
-        mine = [seg for seg in steps if seg.axis == wheel]
+        mine = [seg for seg in steps if seg.segment.axis.value == wheel]
         ramps = [("forwards" if seg.end > 0 else "backwards", seg.t_start_s, seg.t_end_s) for seg in wheel_segments
-                 if seg.axis == wheel and seg.kind == "ramp" and seg.start == 0.0 and seg.end != 0.0]
+                 if seg.segment.axis.value == wheel and seg.segment.kind is Kind.RAMP and seg.start == 0.0
+                 and seg.end != 0.0]
         if not mine:
             continue
         wheels[wheel] = tune_wheel(
             wheel, t, duty, rate,
-            [DutyStep(seg.index, seg.name, seg.t_start_s + seg.lead_s, seg.t_end_s, seg.start * scale,
-                      seg.end * scale) for seg in mine],
+            [DutyStep(seg.segment.index, seg.segment.name, seg.t_start_s + seg.segment.lead_s, seg.t_end_s,
+                      seg.start * scale, seg.end * scale) for seg in mine],
             ramps, rest_band(rate[at_rest]), period, tau_c_s, scale)
     notes += [f"no {tuned.wheel} wheel loop gains: {'; '.join(tuned.problems)}" for tuned in wheels.values()
               if tuned.problems]
@@ -476,8 +480,8 @@ def _figures(rec: Recording, report: Report, out: Path) -> list[Path]:
         if labelled and len(rec.segments) > 1:
             top = ax.secondary_xaxis("top")
             top.set_xticks([seg.t_start_s for seg in rec.segments],
-                           labels=[f"{seg.index} {seg.name}" for seg in rec.segments], fontsize=7, rotation=20,
-                           ha="left")
+                           labels=[f"{seg.segment.index} {seg.segment.name}" for seg in rec.segments], fontsize=7,
+                           rotation=20, ha="left")
             top.tick_params(length=0)
 
     def finish(fig: Any, name: str, what: str) -> None:
@@ -547,7 +551,7 @@ def _tuning_figure(plt: Any, rec: Recording, tuning: Tuning) -> Any:
         steps = [s for s in wheel.steps if s.fit is not None]
         if not steps:
             continue
-        start = min(seg.t_start_s for seg in rec.segments if seg.axis == wheel.wheel)
+        start = min(seg.t_start_s for seg in rec.segments if seg.segment.axis.value == wheel.wheel)
         rows = (t >= start) & (t <= steps[-1].step.t_end_s)
         rate = rec.data[f"{wheel.wheel}_meas_radps"]
         duty = rec.data[f"{wheel.wheel}_cmd_radps"] * wheel.duty_per_command

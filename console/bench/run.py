@@ -28,7 +28,8 @@ from console.record import Recorder, sidecar_path
 from console.session import LoopHandle, bring_to_rest
 from shaping.shaper import StopKind
 
-FORMAT = "diffdeck bench 1"
+FORMAT = "diffdeck bench 2"
+"""2: each segment also as written (levels, duration, chirp), so a report rebuilds the bound segment exactly."""
 TELEMETRY_WAIT_S = 2.0
 """How long a run waits for the first telemetry before giving up (the robot is not answering)."""
 
@@ -323,13 +324,6 @@ class BenchRun:
             "completed": completed,
             "cause": None if progress.cause is None else progress.cause.value,
             "failure": failure,
-            "segments": [
-                {"index": b.segment.index, "name": b.segment.name, "kind": b.segment.kind.value,
-                 "axis": b.segment.axis.value, "bypass": b.segment.bypass,
-                 "t_start_s": t0 + b.t_start_s, "t_end_s": t0 + b.t_end_s, "start": b.start, "end": b.end,
-                 "amplitude": b.amplitude, "partner": b.partner, "lead_s": b.segment.lead_s,
-                 "period_s": b.segment.period_s}
-                for b in self.bound.segments
-            ],
+            "segments": [bound.shifted(t0).to_json() for bound in self.bound.segments],
         }
         write_atomic(side, json.dumps(meta, indent=2) + "\n")
