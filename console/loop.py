@@ -436,4 +436,5 @@ class ControlLoop:
                                    s.state.value)
         if self._pose_columns:
             row += s.pose if s.pose is not None else (None, None, None)
-        recorder.put((*row, s.flags))
+        cause, bound = s.cause, shaped.bound
+        recorder.put((*row, s.flags, "" if cause is None else cause.value, "" if bound is None else bound.value))

@@ -36,8 +36,16 @@ COLUMNS = ("t_s", "v_req_mps", "omega_req_radps", "v_mps", "omega_radps", "left_
            "left_meas_radps", "right_meas_radps", "state")
 POSE_COLUMNS = ("x_m", "y_m", "heading_rad")
 FLAGS_COLUMN = "flags"
-"""Last column: the robot's telemetry flags as an integer (bits of console.protocol.Flags; 0 before any telemetry)."""
-FORMAT = "diffdeck recording 1"
+"""The robot's telemetry flags as an integer (bits of console.protocol.Flags; 0 before any telemetry)."""
+CAUSE_COLUMN = "cause"
+"""The stop cause in force (the snapshot's StopCause value, e.g. "UI stall"); empty while there is none."""
+BOUND_COLUMN = "bound"
+"""The limit binding the shaper's output (Shaped.bound's value, as the shaping panel shows it); empty when none."""
+TEXT_COLUMNS = ("state", CAUSE_COLUMN, BOUND_COLUMN)
+"""Columns written as words; every other column is a number."""
+FORMAT = "diffdeck recording 2"
+"""2: `cause` and `bound` follow `flags`. Readers take 1 too (without those columns)."""
+FORMATS_READ = ("diffdeck recording 1", FORMAT)
 RECORDINGS_DIR = Path("recordings")
 
 
@@ -94,7 +102,7 @@ class Recorder:
         self.profile = profile
         self.link_url = link_url
         self.pose = is_simulated(link_url) if pose is None else pose
-        self.columns = COLUMNS + (POSE_COLUMNS if self.pose else ()) + (FLAGS_COLUMN,)
+        self.columns = COLUMNS + (POSE_COLUMNS if self.pose else ()) + (FLAGS_COLUMN, CAUSE_COLUMN, BOUND_COLUMN)
         self.started = datetime.now(UTC)
         self.dropped = 0
         self.written = 0
@@ -218,7 +226,8 @@ class Recorder:
 
 
 def read_csv(path: str | Path) -> dict[str, numpy.ndarray]:
-    """A recording's columns by name: numbers as float arrays (empty cells -> nan), `state` as strings.
+    """A recording's columns by name: numbers as float arrays (empty cells -> nan), the words (state, cause, bound)
+    as strings (cause and bound empty where none).
 
     Reads whatever whole lines are there, so it also reads the file a killed process left behind.
     """
@@ -228,7 +237,7 @@ def read_csv(path: str | Path) -> dict[str, numpy.ndarray]:
     columns: dict[str, numpy.ndarray] = {}
     for i, name in enumerate(header):
         cells = [row[i] for row in rows]
-        if name == "state":
+        if name in TEXT_COLUMNS:
             columns[name] = numpy.array(cells, dtype=str)
         else:
             columns[name] = numpy.array([float(c) if c else math.nan for c in cells])

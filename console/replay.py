@@ -5,15 +5,18 @@ Reading is vectorized (an hour at 100 Hz is 360,000 rows): the columns the event
 converted for every row on opening, the others by blocks the first time a row of the block is shown (`Rows`);
 seeking is a binary search on the time column, and a snapshot is built only for the row on screen.
 What the rows do not hold is derived where the profile allows it and said where it does not:
-- the envelope target and the binding limit: the profile's envelope applied to the recorded request (shaping), the
-  same envelope the loop used when the profile is the one in the sidecar; `--profile` shows what another would do;
+- the envelope target: the profile's envelope applied to the recorded request (shaping), the same envelope the loop
+  used when the profile is the one in the sidecar; `--profile` shows what another would do;
+- the binding limit: recorded (the `bound` column, any limit the shaper named: envelope, held-back, acceleration,
+  jerk); in older recordings the envelope applied to the request, which names only the envelope's limits;
 - acceleration and jerk use: central differences of the recorded shaped output over the profile's ramp limits;
 - the pose: the recorded true pose (simulated robot), else dead reckoning (shaping.odometry.arc_step) from the
   measured wheel rates;
-- stop causes: the robot's flags at the stop where recorded (watchdog, fault, emergency stop), else "not recorded".
-Older recordings (no flags column), truncated ones (a killed run: no sidecar, maybe half a last line) and ones
-without a sidecar open as far as they go; `missing` says what is not there. A file that is not a recording is one
-`InputError` line (exit 2) naming the file, the field, the value and what is allowed.
+- stop causes: recorded (the `cause` column); in older recordings the robot's flags at the stop where they name it
+  (watchdog, fault, emergency stop), else "cause not recorded".
+Older recordings (no flags, cause or bound columns), truncated ones (a killed run: no sidecar, maybe half a last
+line) and ones without a sidecar open as far as they go; `missing` says what is not there. A file that is not a
+recording is one `InputError` line (exit 2) naming the file, the field, the value and what is allowed.
 """
 
 from __future__ import annotations
@@ -23,6 +26,7 @@ import json
 import math
 import shlex
 import warnings
+from collections.abc import Callable
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
@@ -32,12 +36,12 @@ import numpy as np
 from console.core.codec import DecoderCounts
 from console.core.link import LinkStats
 from console.core.safety import SafetyState, StopCause
-from console.core.step import LIMIT_EVENT_HOLD_S, Event, LoopStats, Snapshot
+from console.core.step import ENVELOPE_BOUNDS, LIMIT_EVENT_HOLD_S, Event, LoopStats, Snapshot
 from console.errors import InputError
 from console.files import PLAIN_NUMBER, read_input
 from console.profile import Profile, ProfileError, load_profile, profile_from_data
 from console.protocol import Flags, flag_names
-from console.record import COLUMNS, FLAGS_COLUMN, FORMAT, POSE_COLUMNS, sidecar_path
+from console.record import BOUND_COLUMN, CAUSE_COLUMN, COLUMNS, FLAGS_COLUMN, FORMATS_READ, POSE_COLUMNS, sidecar_path
 from shaping.envelope import Bound
 from shaping.odometry import arc_step
 from shaping.shaper import Shaped
@@ -48,13 +52,25 @@ FAULT_FLAGS = ((Flags.WATCHDOG, StopCause.WATCHDOG), (Flags.ESTOP, StopCause.EST
 FAULT_MASK = int(Flags.WATCHDOG | Flags.ESTOP | Flags.FAULT)
 BOUNDS = tuple(Bound)
 NO_BOUND = len(BOUNDS)
-"""Bound codes in the index: position in BOUNDS, NO_BOUND where the request passes the envelope."""
+"""Bound codes in the index: position in BOUNDS, NO_BOUND where no limit binds."""
+LOGGED_BOUND_CODES = np.array([BOUNDS.index(bound) for bound in ENVELOPE_BOUNDS])
+"""The limits the loop logs when they bind (console.core.step): the envelope's."""
+CAUSES = tuple(StopCause)
+NO_CAUSE = len(CAUSES)
+"""Cause codes in the index: position in CAUSES, NO_CAUSE where no stop is in force."""
+WORD_CODES: dict[str, dict[str, float]] = {
+    "state": {state.value: float(code) for code, state in enumerate(STATES)},
+    CAUSE_COLUMN: {"": float(NO_CAUSE), "nan": float(NO_CAUSE)} | {c.value: float(k) for k, c in enumerate(CAUSES)},
+    BOUND_COLUMN: {"": float(NO_BOUND), "nan": float(NO_BOUND)} | {b.value: float(k) for k, b in enumerate(BOUNDS)},
+}
+"""The columns written as words, each word's code in the float table (an empty cell, read as nan or not: none)."""
 EVENTS_SHOWN = 50
 """Events handed to the event log with each snapshot: the newest this many up to the row on screen."""
 BLOCK_ROWS = 4096
 """Rows parsed together the first time one of them is shown (41 s at 100 Hz: a jump needs one or two blocks)."""
 INDEX = ("t_s", "v_req_mps", "omega_req_radps", "state")
-"""Columns parsed for every row on opening: the events, the position bar and the binding limit need them all."""
+"""Columns parsed for every row on opening: the events, the position bar and the binding limit need them all (and
+flags, cause and bound where recorded)."""
 MEASURED = ("left_meas_radps", "right_meas_radps")
 MOMENT_KINDS = ("stop", "fault")
 """What `notable_moments` lists (the report prints a replay command for each)."""
@@ -129,9 +145,10 @@ def read_sidecar(csv_path: Path) -> Sidecar | None:
     except (UnicodeDecodeError, ValueError, RecursionError) as error:
         raise _fail(path, "file", path.name, f"a JSON sidecar as diffdeck writes it ({error.__class__.__name__}); "
                                              "move it away to replay the CSV alone") from None
-    if not isinstance(meta, dict) or meta.get("format") != FORMAT:
+    if not isinstance(meta, dict) or meta.get("format") not in FORMATS_READ:
         shown = meta.get("format") if isinstance(meta, dict) else type(meta).__name__
-        raise _fail(path, "format", shown, f'"{FORMAT}"; move the file away to replay the CSV alone')
+        raise _fail(path, "format", shown, " or ".join(f'"{name}"' for name in FORMATS_READ)
+                    + "; move the file away to replay the CSV alone")
     profile: dict[str, Any] = meta["profile"] if isinstance(meta.get("profile"), dict) else {}
     data = profile.get("data")
     dropped = meta.get("dropped_rows")
@@ -151,51 +168,77 @@ def _columns(path: Path, header: str) -> list[str]:
     lacking = [name for name in COLUMNS if name not in columns]
     if lacking:
         raise _fail(path, "header", header[:80], "a diffdeck recording: a CSV whose header has the columns "
-                                                 + ",".join(COLUMNS) + " (then x_m,y_m,heading_rad and flags where "
-                                                 "recorded)")
+                                                 + ",".join(COLUMNS) + " (then x_m,y_m,heading_rad, flags, cause "
+                                                 "and bound where recorded)")
     return columns
 
 
-def _filled(body: bytes) -> bytes:
-    """Empty cells (nothing measured yet) as nan. They sit in the first rows, before the first telemetry: only the
-    stretch of lines that has any is rewritten, not the whole hour."""
-    first = body.find(b",,")
-    if first >= 0:
-        start = body.rfind(b"\n", 0, first) + 1
-        end = body.find(b"\n", body.rfind(b",,")) + 1 or len(body)
+def _word_tail(columns: list[str]) -> int:
+    """How many of the last columns hold words (cause and bound in recordings that have them; 0 in older ones)."""
+    return next((n for n, name in enumerate(reversed(columns)) if name not in WORD_CODES), len(columns))
+
+
+def _empty_numbers(body: bytes, tail: int) -> tuple[int, int] | None:
+    """Where the first and the last empty number cell are (the positions of their ",,"), None when there is none.
+    The last `tail` columns hold words (cause, bound) that are empty in nearly every row: their empty cells are left
+    out, found with numpy rather than one by one (an hour has hundreds of thousands of them)."""
+    if tail < 2:                    # an empty word cell can only be the last one: every ",," is an empty number
+        first = body.find(b",,")
+        return None if first < 0 else (first, body.rfind(b",,"))
+    buf = np.frombuffer(body, dtype=np.uint8)
+    commas = np.flatnonzero(buf == 44)
+    k = np.flatnonzero(np.diff(commas) == 1) + 1        # index in `commas` of each ",,"'s second comma
+    if not k.size:
+        return None
+    ends = np.flatnonzero(buf == 10)
+    line_end = np.append(ends, buf.size)[np.searchsorted(ends, commas[k])]
+    later = np.minimum(k + tail - 1, commas.size - 1)    # a number has at least tail - 1 commas after it in its line
+    hits = commas[k][(k + tail - 1 < commas.size) & (commas[later] < line_end)]
+    return (int(hits[0]) - 1, int(hits[-1]) - 1) if hits.size else None
+
+
+def _filled(body: bytes, tail: int = 0) -> bytes:
+    """Empty number cells (nothing measured yet) as nan. They sit in the first rows, before the first telemetry:
+    only the stretch of lines that has any is rewritten, not the whole hour. The last `tail` columns are words read
+    by converters that take an empty cell (or "nan") as none."""
+    span = _empty_numbers(body, tail)
+    if span is not None:
+        start = body.rfind(b"\n", 0, span[0]) + 1
+        end = body.find(b"\n", span[1]) + 1 or len(body)
         stretch = body[start:end]
         for _ in range(2):          # two passes: each one fills every other empty cell of a run of them
             stretch = stretch.replace(b",,", b",nan,")
         body = body[:start] + stretch + body[end:]
-    if b",\n" in body:             # an empty last cell (older recordings end with the pose)
+    if not tail and b",\n" in body:     # an empty last cell (older recordings end with the pose)
         body = body.replace(b",\n", b",nan\n")
     return body
 
 
 def _parse_rows(path: Path, body: bytes, columns: list[str], names: tuple[str, ...] | None = None,
                 first_line: int = 2) -> np.ndarray:
-    """The rows' columns `names` (all by default) as one float table (state as its code, empty cells as nan); the
-    first bad cell named otherwise (`first_line`: the file's line number of the first row in `body`)."""
+    """The rows' columns `names` (all by default) as one float table (words as their codes in WORD_CODES, empty
+    cells as nan); the first bad cell named otherwise (`first_line`: the file's line number of the first row in
+    `body`)."""
     names = tuple(columns) if names is None else names
     use = [columns.index(name) for name in names]
-    state_at = columns.index("state")
-    codes = {state.value: float(code) for code, state in enumerate(STATES)}
+    converters: dict[int | str, Callable[[str], float]] = {
+        columns.index(name): WORD_CODES[name].__getitem__ for name in names if name in WORD_CODES}
     try:
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")    # an empty body is said by the caller, in one line
-            table = np.loadtxt(io.BytesIO(_filled(body)), delimiter=",", ndmin=2, dtype=float, encoding="utf-8",
-                               usecols=use, converters={state_at: codes.__getitem__} if state_at in use else None)
+            table = np.loadtxt(io.BytesIO(_filled(body, _word_tail(columns))), delimiter=",", ndmin=2, dtype=float,
+                               encoding="utf-8",
+                               usecols=use, converters=converters or None)
     except (ValueError, KeyError, UnicodeDecodeError):
         table = None
     if table is None or (table.size and table.shape[1] != len(use)) or np.isinf(table).any():
-        _first_bad_cell(path, body, columns, state_at, first_line)
+        _first_bad_cell(path, body, columns, first_line)
     assert table is not None
     return table
 
 
-def _first_bad_cell(path: Path, body: bytes, columns: list[str], state_at: int, first_line: int) -> None:
+def _first_bad_cell(path: Path, body: bytes, columns: list[str], first_line: int) -> None:
     """Name the first line, field and value the fast reader refused (the slow way, only once it has refused)."""
-    words = {state.value for state in STATES}
     for number, raw in enumerate(body.split(b"\n"), start=first_line):
         if not raw.strip():
             continue
@@ -203,12 +246,15 @@ def _first_bad_cell(path: Path, body: bytes, columns: list[str], state_at: int, 
         if len(fields) != len(columns):
             raise _fail(path, f"line {number}", f"{len(fields)} fields", f"{len(columns)} comma-separated fields, as "
                                                                          "in the header")
-        for index, cell in enumerate(fields):
-            if index == state_at:
+        for name, cell in zip(columns, fields):
+            words = WORD_CODES.get(name)
+            if words is not None:
                 if cell not in words:
-                    raise _fail(path, f"line {number}, state", cell[:40], "one of " + ", ".join(sorted(words)))
+                    allowed = sorted(word for word in words if word and word != "nan")
+                    raise _fail(path, f"line {number}, {name}", cell[:40], ("empty or " if "" in words else "")
+                                + "one of " + ", ".join(allowed))
             elif cell.strip() not in ("", "nan") and not PLAIN_NUMBER.fullmatch(cell):
-                raise _fail(path, f"line {number}, {columns[index]}", cell[:40],
+                raise _fail(path, f"line {number}, {name}", cell[:40],
                             "a finite number, or empty where nothing was measured")
     raise _fail(path, "file", str(path), "a CSV recording numpy can read (this one it cannot; please report it)")
 
@@ -271,8 +317,12 @@ def _profile(path: Path, sidecar: Sidecar | None, override: str | Path | None) -
                            error.allowed + " (or give a profile with --profile)") from None
 
 
-def _cause(flags: np.ndarray | None, row: int) -> StopCause | None:
-    """A stop's cause where the rows show it: the robot's fault flags at that row; None otherwise."""
+def _cause(flags: np.ndarray | None, causes: np.ndarray | None, row: int) -> StopCause | None:
+    """The stop cause at a row: recorded (the cause column), else what the robot's fault flags at that row name;
+    None when neither tells."""
+    if causes is not None:
+        code = int(causes[row])
+        return None if code == NO_CAUSE else CAUSES[code]
     if flags is None:
         return None
     return next((cause for flag, cause in FAULT_FLAGS if int(flags[row]) & flag), None)
@@ -283,14 +333,32 @@ def _share(used: float) -> float:
     return min(used, 1.0) if math.isfinite(used) else 0.0
 
 
+def _held_changes(t: np.ndarray, codes: np.ndarray) -> list[tuple[int, int]]:
+    """(row, code) where `codes` changes to a value that then holds LIMIT_EVENT_HOLD_S or longer (a brief brush is
+    no change), the loop's rule for logging a limit: a row at least that long after the change still has it. The
+    first row counts from no limit."""
+    starts = np.concatenate([[0], np.flatnonzero(codes[1:] != codes[:-1]) + 1])
+    lasts_t = t[np.append(starts[1:] - 1, t.size - 1)]        # the time of each run's last row
+    last = NO_BOUND
+    changes = []
+    for start, last_t in zip(starts.tolist(), lasts_t.tolist()):
+        code = int(codes[start])
+        if code != last and last_t - t[start] >= LIMIT_EVENT_HOLD_S:
+            last = code
+            changes.append((start, code))
+    return changes
+
+
 def _order(mark: Mark) -> tuple[int, bool]:
     """Events by row; at one row a fault before the stop it brought."""
     return mark.row, mark.event.kind != "fault"
 
 
-def row_events(t: np.ndarray, state: np.ndarray, flags: np.ndarray | None) -> list[Mark]:
-    """What the state and flags columns tell by themselves (no profile needed): arming, stops with the cause the
-    flags give, coming to rest, the robot's faults raised and cleared."""
+def row_events(t: np.ndarray, state: np.ndarray, flags: np.ndarray | None,
+               causes: np.ndarray | None = None) -> list[Mark]:
+    """What the state, flags and cause columns tell by themselves (no profile needed): arming, stops with their
+    cause (recorded, else the one the flags give), a harsher stop replacing the one in force, coming to rest, the
+    robot's faults raised and cleared."""
     marks: list[Mark] = []
     stopping, stopped, armed = (STATES.index(s) for s in (SafetyState.STOPPING, SafetyState.STOPPED,
                                                            SafetyState.ARMED))
@@ -299,7 +367,7 @@ def row_events(t: np.ndarray, state: np.ndarray, flags: np.ndarray | None) -> li
     for i in (np.flatnonzero(state[1:] != state[:-1]) + 1).tolist():
         new, old = int(state[i]), int(state[i - 1])
         if new == stopping or (new == stopped and old != stopping):
-            cause = _cause(flags, i)
+            cause = _cause(flags, causes, i)
             why = cause.value if cause is not None else "cause not recorded"
             text = f"stop ({why})" + ("; stopped at once" if new == stopped else "; ramping down")
             marks.append(Mark(i, Event(float(t[i]), text, "stop")))
@@ -309,6 +377,11 @@ def row_events(t: np.ndarray, state: np.ndarray, flags: np.ndarray | None) -> li
             marks.append(Mark(i, Event(float(t[i]), "armed", "safety")))
         else:
             marks.append(Mark(i, Event(float(t[i]), STATES[new].value, "safety")))
+    if causes is not None:      # a harsher stop while stopping or stopped: same state, another cause
+        held = (state[1:] == state[:-1]) & np.isin(state[1:], (stopping, stopped))
+        for i in (np.flatnonzero(held & (causes[1:] != causes[:-1]) & (causes[1:] != NO_CAUSE)) + 1).tolist():
+            marks.append(Mark(i, Event(float(t[i]), f"stop ({CAUSES[int(causes[i])].value}); replaces the stop in "
+                                                    "force", "stop")))
     if flags is not None:
         faults = flags & FAULT_MASK
         if t.size and faults[0]:
@@ -343,7 +416,10 @@ class Replay:
         self.period_s = 1.0 / profile.link.rate_hz
         self.state = cols["state"].astype(np.int8)
         self.flags = cols[FLAGS_COLUMN].astype(np.int64) if FLAGS_COLUMN in cols else None
-        self.target_v, self.target_w, self.bound = self._envelope(profile.envelope)
+        self.causes = cols[CAUSE_COLUMN].astype(np.int8) if CAUSE_COLUMN in cols else None
+        self.target_v, self.target_w, derived = self._envelope(profile.envelope)
+        self.bound_recorded = BOUND_COLUMN in cols
+        self.bound = cols[BOUND_COLUMN].astype(np.int8) if self.bound_recorded else derived
         self.true_pose = all(name in cols for name in POSE_COLUMNS)
         if not self.true_pose:
             self._reckoned = self._dead_reckoning()
@@ -353,6 +429,8 @@ class Replay:
         self.mark_rows = np.array([m.row for m in self.marks], dtype=np.int64)
         self._kind_rows = {kind: np.array([m.row for m in self.marks if m.event.kind == kind], dtype=np.int64)
                            for kind in ("stop", "fault", "limit", "safety", "record")}
+        if self.bound_recorded:     # every limit the shaper named is a change to jump to, the ramp limits too
+            self._kind_rows["limit"] = np.array([row for row, _ in _held_changes(self.t, self.bound)], dtype=np.int64)
 
     @property
     def start_s(self) -> float:
@@ -430,7 +508,7 @@ class Replay:
     def _find_events(self) -> tuple[Mark, ...]:
         t = self.t
         marks = [Mark(0, Event(float(t[0]), f"in this recording: {note}", "record")) for note in self.missing]
-        marks += row_events(t, self.state, self.flags)
+        marks += row_events(t, self.state, self.flags, self.causes)
         marks += self._limit_changes()
         end = self.rows - 1
         if self.sidecar is not None and self.sidecar.write_error:
@@ -441,24 +519,16 @@ class Replay:
         return tuple(sorted(marks, key=_order))
 
     def _limit_changes(self) -> list[Mark]:
-        """A change of the binding limit, logged as the loop logs it: once the new limit has held for
-        LIMIT_EVENT_HOLD_S (a brief brush stays out), at the row where it began."""
-        bound, t = self.bound, self.t
-        starts = np.concatenate([[0], np.flatnonzero(bound[1:] != bound[:-1]) + 1])
-        ends_t = np.append(t[starts[1:]], np.inf)
-        logged = NO_BOUND
-        marks = []
-        for start, end_t in zip(starts.tolist(), ends_t.tolist()):
-            code = int(bound[start])
-            if code != logged and end_t - t[start] >= LIMIT_EVENT_HOLD_S:
-                logged = code
-                text = (f"limit: {BOUNDS[code].value} clips the request" if code != NO_BOUND
-                        else "limit: request within the envelope")
-                marks.append(Mark(start, Event(float(t[start]), text, "limit")))
-        return marks
+        """The binding-limit events as the loop logs them: an envelope limit (the ramp limits bind in every
+        transition: the loop shows them live, never logs them) once it has held for LIMIT_EVENT_HOLD_S, at the row
+        where it began."""
+        logged = np.where(np.isin(self.bound, LOGGED_BOUND_CODES), self.bound, NO_BOUND)
+        return [Mark(row, Event(float(self.t[row]), f"limit: {BOUNDS[code].value} clips the request"
+                                if code != NO_BOUND else "limit: request within the envelope", "limit"))
+                for row, code in _held_changes(self.t, logged)]
 
     def cause_at(self, row: int) -> StopCause | None:
-        return _cause(self.flags, row)
+        return _cause(self.flags, self.causes, row)
 
     # -- navigation ------------------------------------------------------------------------------------------------
 
@@ -513,7 +583,9 @@ class Replay:
                         not (math.isfinite(v_req) and math.isfinite(w_req)), None, False,
                         i > 0 and v == value_at("v_mps", i - 1) and w == value_at("omega_radps", i - 1))
         cause = None
-        if state in (SafetyState.STOPPING, SafetyState.STOPPED):
+        if self.causes is not None:
+            cause = self.cause_at(i)           # what the loop's snapshot held at this row
+        elif state in (SafetyState.STOPPING, SafetyState.STOPPED):
             start = self.next_mark(i + 1, "stop", back=True)
             cause = self.cause_at(start) if start is not None else None
         pose = self.poses(i, i)[0]
@@ -541,9 +613,9 @@ class Replay:
 
 
 def read_rows(path: str | Path, *, measured: bool = False) -> tuple[Rows, list[str]]:
-    """A recording's rows (the index columns parsed, state as its code in STATES, flags as integers where
-    recorded; `measured` or no pose columns: the measured rates too) and what the file lacks; RecordingError (one
-    line, exit code 2) for anything that is not a recording."""
+    """A recording's rows (the index columns parsed, state as its code in STATES, flags as integers, cause and bound
+    as their codes in CAUSES and BOUNDS where recorded; `measured` or no pose columns: the measured rates too) and
+    what the file lacks; RecordingError (one line, exit code 2) for anything that is not a recording."""
     path = Path(path)
     raw = read_input(path, "a CSV recording")
     head, _, body = raw.partition(b"\n")
@@ -559,7 +631,7 @@ def read_rows(path: str | Path, *, measured: bool = False) -> tuple[Rows, list[s
         missing.append("the last line was cut off (a killed run?): it is left out")
     if not body.strip():
         raise _fail(path, "rows", 0, "at least one whole data row after the header (nothing was recorded)")
-    index = INDEX + ((FLAGS_COLUMN,) if FLAGS_COLUMN in columns else ())
+    index = INDEX + tuple(name for name in (FLAGS_COLUMN, CAUSE_COLUMN, BOUND_COLUMN) if name in columns)
     if measured or not all(name in columns for name in POSE_COLUMNS):
         index += MEASURED
     rows = Rows(path, columns, body, index)
@@ -571,6 +643,12 @@ def read_rows(path: str | Path, *, measured: bool = False) -> tuple[Rows, list[s
         rows.cols[FLAGS_COLUMN] = np.nan_to_num(rows.cols[FLAGS_COLUMN])
     else:
         missing.append("no flags column (a recording from an older version): robot faults and flags are not shown")
+    if CAUSE_COLUMN not in columns:
+        missing.append("no cause column (a recording from an older version): a stop's cause is shown only where the "
+                       "robot's flags name it")
+    if BOUND_COLUMN not in columns:
+        missing.append("no bound column (a recording from an older version): the binding limit is the profile's "
+                       "envelope applied to the request (acceleration, jerk and held-back limits are not shown)")
     return rows, missing
 
 
@@ -612,6 +690,7 @@ def notable_moments(path: str | Path) -> list[tuple[float, str, str]]:
         return []
     cols = rows.cols
     flags = cols[FLAGS_COLUMN].astype(np.int64) if FLAGS_COLUMN in cols else None
-    marks = sorted(row_events(cols["t_s"], cols["state"].astype(np.int8), flags), key=_order)
+    causes = cols[CAUSE_COLUMN].astype(np.int8) if CAUSE_COLUMN in cols else None
+    marks = sorted(row_events(cols["t_s"], cols["state"].astype(np.int8), flags, causes), key=_order)
     return [(m.event.t_s, m.event.text, replay_command(path, m.event.t_s))
             for m in marks if m.event.kind in MOMENT_KINDS][:MOMENTS_LISTED]

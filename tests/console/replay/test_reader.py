@@ -23,7 +23,7 @@ from console.core.safety import SafetyState, StopCause
 from console.errors import InputError
 from console.record import read_csv, sidecar_path
 from console.replay import notable_moments, open_replay, replay_command
-from tests.console.replay.conftest import BRAMBLE, SCENE, WREN
+from tests.console.replay.conftest import BRAMBLE, SCENE, WREN, old_format, without_columns
 
 PERIOD_S = 0.01     # wren's [link] rate_hz = 100
 
@@ -39,7 +39,7 @@ def test_events_are_where_the_script_put_them(scene_recording: Path) -> None:
     assert armed == pytest.approx([SCENE.armed_s + PERIOD_S, SCENE.rearm_s + PERIOD_S], abs=PERIOD_S / 2)
     stops = _events(replay, "stop")
     assert [t for t, _ in stops][0] == pytest.approx(SCENE.stop_s + PERIOD_S, abs=PERIOD_S / 2)
-    assert "cause not recorded" in stops[0][1]            # an operator stop leaves no trace in the rows
+    assert stops[0][1] == "stop (operator); ramping down"  # the script's StopCause.OPERATOR, in the cause column
     # the fault: the firmware reports it in its next telemetry (wren: 50 Hz, so within 20 ms + one period)
     fault_t, fault_text = _events(replay, "fault")[0]
     assert SCENE.fault_s < fault_t <= SCENE.fault_s + 0.02 + PERIOD_S and "FAULT" in fault_text
@@ -68,20 +68,26 @@ def test_a_row_shows_the_recorded_values(scene_recording: Path) -> None:
         assert snap.pose == (rec["x_m"][row], rec["y_m"][row], rec["heading_rad"][row])
 
 
-def test_the_binding_limit_is_the_profiles_envelope_on_the_request(scene_recording: Path) -> None:
-    """1.6 m/s straight ahead is beyond wren's top speed: the target is that limit, read from the TOML itself; with
-    --profile bramble it is bramble's (a straight line: no turn or sideways share, so the speed limit, or the
-    wheel-rate limit times the wheel radius where that is lower); a limit binds only where the request is beyond."""
-    row = open_replay(scene_recording).row_at(SCENE.beyond_s + 1.0)
+def test_without_a_bound_column_the_binding_limit_is_the_profiles_envelope_on_the_request(
+        scene_recording: Path, tmp_path: Path) -> None:
+    """An older recording: 1.6 m/s straight ahead is beyond wren's top speed: the target is that limit, read from
+    the TOML itself; with --profile bramble it is bramble's (a straight line: no turn or sideways share, so the speed
+    limit, or the wheel-rate limit times the wheel radius where that is lower); a limit binds only where the request
+    is beyond. With the bound column the limit shown is the recorded one, whatever the profile."""
+    old = old_format(scene_recording, tmp_path / "old.csv")
+    row = open_replay(old).row_at(SCENE.beyond_s + 1.0)
     for profile in (None, BRAMBLE):
-        replay = open_replay(scene_recording, profile)
+        replay = open_replay(old, profile)
         snap = replay.snapshot(row)
         toml = tomllib.loads((profile or WREN).read_text(encoding="utf-8"))
         top = min(toml["limits"]["speed_mps"], toml["limits"]["wheel_rate_radps"] * toml["geometry"]["wheel_radius_m"])
         assert snap.shaped.v_req_mps == SCENE.beyond_mps
         assert snap.shaped.v_target_mps == pytest.approx(min(SCENE.beyond_mps, top))
         assert (snap.shaped.bound is not None) == (SCENE.beyond_mps > top)
-    assert open_replay(scene_recording, BRAMBLE).profile_source == f"--profile {BRAMBLE}"
+        assert any("no bound column" in m for m in replay.missing)
+        assert open_replay(scene_recording, profile).snapshot(row).shaped.bound.value == \
+            read_csv(scene_recording)["bound"][row]
+    assert open_replay(old, BRAMBLE).profile_source == f"--profile {BRAMBLE}"
 
 
 def test_a_fault_stop_carries_its_cause(scene_recording: Path) -> None:
@@ -90,21 +96,12 @@ def test_a_fault_stop_carries_its_cause(scene_recording: Path) -> None:
     assert snap.state is SafetyState.STOPPED and snap.cause is StopCause.FAULT
 
 
-def _without_columns(source: Path, target: Path, drop: tuple[str, ...]) -> Path:
-    lines = source.read_text(encoding="utf-8").splitlines()
-    header = lines[0].split(",")
-    keep = [i for i, name in enumerate(header) if name not in drop]
-    target.write_text("\n".join(",".join(line.split(",")[i] for i in keep) for line in lines) + "\n",
-                      encoding="utf-8")
-    return target
-
-
 def test_dead_reckoning_follows_the_true_pose_when_no_pose_was_recorded(scene_recording: Path, tmp_path: Path) -> None:
     """Without the pose columns (a real robot), the top view integrates the measured wheel rates; on the simulated
     robot with exact geometry (wren: wheel_radius_ratio = track_width_scale = 1) that must land near the true pose
     the plant recorded: within 2 % of the way travelled (measurement noise and 20 ms telemetry steps)."""
     rec = read_csv(scene_recording)
-    stripped = _without_columns(scene_recording, tmp_path / "real.csv", ("x_m", "y_m", "heading_rad"))
+    stripped = without_columns(scene_recording, tmp_path / "real.csv", ("x_m", "y_m", "heading_rad"))
     shutil.copy(sidecar_path(scene_recording), sidecar_path(stripped))
     replay = open_replay(stripped)
     assert not replay.true_pose and any("dead reckoning" in m for m in replay.missing)
@@ -115,8 +112,7 @@ def test_dead_reckoning_follows_the_true_pose_when_no_pose_was_recorded(scene_re
 
 
 def test_an_old_recording_without_flags_replays_and_says_so(scene_recording: Path, tmp_path: Path) -> None:
-    old = _without_columns(scene_recording, tmp_path / "old.csv", ("flags",))
-    shutil.copy(sidecar_path(scene_recording), sidecar_path(old))
+    old = old_format(scene_recording, tmp_path / "old.csv", ("flags", "cause", "bound"))
     replay = open_replay(old)
     assert any("no flags column" in m for m in replay.missing)
     assert _events(replay, "fault") == [] and len(_events(replay, "stop")) == 2
@@ -172,6 +168,13 @@ def test_a_bad_cell_is_named_by_line_field_and_value(scene_recording: Path, tmp_
     assert len(err) == 1 and "bad.csv" in err[0] and "line 6, v_mps" in err[0] and "'fast'" in err[0]
     _with_cell(scene_recording, bad, 8, 9, "cruising")                              # state
     with pytest.raises(InputError, match="line 8, state = 'cruising': one of"):
+        open_replay(bad, WREN)
+    header = scene_recording.read_text(encoding="utf-8").split("\n", 1)[0].split(",")
+    _with_cell(scene_recording, bad, 9, header.index("cause"), "coffee")
+    with pytest.raises(InputError, match="line 9, cause = 'coffee': empty or one of .*UI stall"):
+        open_replay(bad, WREN)
+    _with_cell(scene_recording, bad, 10, header.index("bound"), "JERK")
+    with pytest.raises(InputError, match="line 10, bound = 'JERK': empty or one of .*jerk"):
         open_replay(bad, WREN)
 
 
@@ -258,9 +261,9 @@ def test_a_run_with_no_telemetry_says_so(scene_recording: Path, tmp_path: Path) 
     header = lines[0].split(",")
     meas = [header.index(name) for name in ("left_meas_radps", "right_meas_radps")]
     rows = [[("" if k in meas else cell) for k, cell in enumerate(line.split(","))] for line in lines[1:]]
-    silent = _without_columns(scene_recording, tmp_path / "full.csv", ())
+    silent = without_columns(scene_recording, tmp_path / "full.csv", ())
     silent.write_text("\n".join([lines[0]] + [",".join(row) for row in rows]) + "\n", encoding="utf-8")
-    real = _without_columns(silent, tmp_path / "silent.csv", ("x_m", "y_m", "heading_rad"))
+    real = without_columns(silent, tmp_path / "silent.csv", ("x_m", "y_m", "heading_rad"))
     replay = open_replay(real, WREN)
     assert any("no measured wheel rates" in m for m in replay.missing)
     assert replay.snapshot(500).left_meas_radps is None and replay.snapshot(500).pose is None

@@ -114,6 +114,8 @@ async def test_playing_follows_the_clock_at_each_speed(scene_recording: Path) ->
 
 
 async def test_jumps_land_on_stops_faults_limits_and_events(scene_recording: Path) -> None:
+    bound = read_csv(scene_recording)["bound"]
+    first_bound = int(next(k for k, name in enumerate(bound) if name))    # the ramp after arming: jerk binds first
     app, _ = make_app(scene_recording)
     replay = app.replay
     stops = [m.row for m in replay.marks if m.event.kind == "stop"]
@@ -129,8 +131,8 @@ async def test_jumps_land_on_stops_faults_limits_and_events(scene_recording: Pat
         assert app.row == stops[1] and app.note == "no later stop"
         await pilot.press("S")
         assert app.row == stops[0]
-        await pilot.press("home", "l")
-        assert app.t_s == pytest.approx(SCENE.beyond_s + 0.01)
+        await pilot.press("home", "l")                          # the recorded binding limit: ramp limits too
+        assert app.row == first_bound and f"{bound[first_bound].upper()} LIMIT" in text_of(app, LimitPanel)
         await pilot.press("f")
         assert "FAULT" in text_of(app, EventLog).splitlines()[-2] + text_of(app, EventLog).splitlines()[-1]
         fault_row = app.row
