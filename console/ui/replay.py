@@ -91,12 +91,14 @@ REPLAY_BINDINGS: list[BindingType] = [
 REPLAY_KEYS = key_rows(REPLAY_BINDINGS)
 REPLAY_NOTES = (
     "Replay reads a recording: there is no link and no robot, and nothing can be armed.",
-    "What the rows do not hold is worked out from them and the profile: the envelope target and the binding limit "
-    "(the profile's envelope applied to the recorded request), acceleration and jerk use (differences of the "
-    "recorded output), the pose (dead reckoning when no true pose was recorded). With --profile, the limits shown "
-    "are that profile's, not necessarily the ones the run was made with.",
-    "A stop's cause is shown when the robot's flags at the stop name it (watchdog, fault, emergency stop); other "
-    "causes are not in the recording.",
+    "The stop cause and the binding limit are the ones the loop recorded (l / L go to every change of that limit "
+    "that held 0.25 s, acceleration and jerk limits too). What the rows do not hold is worked out from them and the "
+    "profile: the envelope target (the profile's envelope applied to the recorded request), acceleration and jerk "
+    "use (differences of the recorded output), the pose (dead reckoning when no true pose was recorded). With "
+    "--profile, the limits shown are that profile's, not necessarily the ones the run was made with.",
+    "Older recordings (without the cause and bound columns): a stop's cause is shown where the robot's flags at the "
+    "stop name it (watchdog, fault, emergency stop), otherwise 'cause not recorded'; the binding limit is the "
+    "profile's envelope applied to the recorded request.",
 )
 
 
