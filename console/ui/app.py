@@ -16,7 +16,6 @@ from types import FrameType
 from typing import TYPE_CHECKING
 
 from textual.app import App, ComposeResult
-from textual.containers import Horizontal, Vertical
 from textual.screen import Screen
 
 from console.core.safety import SafetyState, StopCause
@@ -25,21 +24,16 @@ from console.session import at_rest
 from console.ui.driving import Confirm, DriveInput, DriveMode, DriveSettings
 from console.ui.input_panel import InputPanel
 from console.ui.keys import APP_BINDINGS, SCREEN_BINDINGS
+from console.ui.layout import PanelScreen
 from console.ui.monitor import MonitorScreen
 from console.ui.screens import CautionScreen, HelpScreen, Overlay, SetpointScreen
 from console.ui.signals import exit_on_ending_signals
 from console.ui.widgets import (
-    AxisGauge,
     EventLog,
     HintBar,
     KeyCard,
-    LimitPanel,
     LinkPanel,
-    SafetyBanner,
     TitleBar,
-    TopView,
-    TracePlot,
-    WheelPanel,
 )
 from shaping.shaper import StopKind
 
@@ -94,7 +88,7 @@ def repaint_on_resume(app: DriveApp) -> Callable[[], None]:
     return restore
 
 
-class DriveScreen(Screen[None]):
+class DriveScreen(PanelScreen):
     """The main screen. Driving keys live here, so they are dead while an overlay is open; stops are on the app."""
 
     BINDINGS = SCREEN_BINDINGS
@@ -112,46 +106,15 @@ class DriveScreen(Screen[None]):
         return app
 
     def compose(self) -> ComposeResult:
-        envelope = self.profile.envelope
-        top, reverse, turn = envelope.top_speed_mps, envelope.top_reverse_speed_mps, envelope.top_turn_rate_radps
-        margin = 0.12 * (top + reverse)
-        yield TitleBar(id="title")
-        with Horizontal(id="body"):
-            with Vertical(id="left"):
-                yield SafetyBanner(id="banner")
-                yield InputPanel(id="input")
-                yield LinkPanel(id="link")
-                yield LimitPanel(id="limits")
-                yield KeyCard(id="keys")
-            with Vertical(id="right"):
-                with Vertical(id="gauges"):
-                    yield AxisGauge("speed", "m/s", -reverse - margin, top + margin, id="speed")
-                    yield AxisGauge("turn", "rad/s", -1.12 * turn, 1.12 * turn, id="turn")
-                yield WheelPanel(self.profile, id="wheels")
-                with Horizontal(id="views"):
-                    yield TracePlot((-reverse - margin, top + margin), 1.12 * turn, id="plot")
-                    yield TopView(id="top")
-                yield EventLog(id="events")
-        yield HintBar(id="hints")
+        yield from self.drive_layout(self.profile, title=TitleBar(id="title"),
+                                     left=(InputPanel(id="input"), LinkPanel(id="link")), keys=KeyCard(id="keys"),
+                                     events=EventLog(id="events"), below=(HintBar(id="hints"),))
 
     def on_mount(self) -> None:
-        titles = {
-            "#link": "link", "#limits": "shaping", "#keys": "keys", "#gauges": "request · envelope · output",
-            "#wheels": f"wheels (limit ±{self.profile.limits.wheel_rate_radps:g} rad/s)", "#plot": "trace",
-            "#top": "top view", "#events": "events",
-        }
-        for selector, title in titles.items():
-            self.query_one(selector).border_title = title
+        self.find_panels(self.profile, link_title="link", events_title="events")
         self.title_bar = self.query_one(TitleBar)
-        self.banner = self.query_one(SafetyBanner)
         self.input_panel = self.query_one(InputPanel)
         self.link_panel = self.query_one(LinkPanel)
-        self.limit_panel = self.query_one(LimitPanel)
-        self.speed_gauge = self.query_one("#speed", AxisGauge)
-        self.turn_gauge = self.query_one("#turn", AxisGauge)
-        self.wheel_panel = self.query_one(WheelPanel)
-        self.plot = self.query_one(TracePlot)
-        self.top_view = self.query_one(TopView)
         self.event_log = self.query_one(EventLog)
         self.ready = True
         self.console.start_ticking()

@@ -18,7 +18,7 @@ import numpy as np
 from textual import events
 from textual.app import App, ComposeResult
 from textual.binding import Binding, BindingType
-from textual.containers import Horizontal, Vertical
+from textual.containers import Vertical
 from textual.screen import ModalScreen, Screen
 from textual.widgets import Input, Static
 
@@ -26,27 +26,21 @@ from console.core.step import Event, Snapshot
 from console.files import PLAIN_NUMBER
 from console.protocol import flag_names
 from console.replay import RecordingError, Replay
-from console.ui.app import HEAVY_PERIOD_S, DriveApp
+from console.ui.app import HEAVY_PERIOD_S, RENDER_HZ, DriveApp
 from console.ui.keys import key_rows
+from console.ui.layout import PanelScreen
 from console.ui.rows import Rows
 from console.ui.screens import HelpScreen
 from console.ui.signals import exit_on_ending_signals
 from console.ui.widgets import (
-    AxisGauge,
     EventLog,
     HintBar,
     KeyCard,
-    LimitPanel,
     Panel,
-    SafetyBanner,
-    TopView,
-    TracePlot,
-    WheelPanel,
     _col,
     _decoder_text,
 )
 
-RENDER_HZ = 20.0
 SPEEDS = (0.25, 0.5, 1.0, 2.0, 4.0, 8.0)
 TRAIL_S = 30.0
 """How much of the way before the position the top view draws after a jump (it keeps growing while playing)."""
@@ -287,7 +281,7 @@ class GotoScreen(ModalScreen[float | None]):
         self.dismiss(None)
 
 
-class ReplayScreen(Screen[None]):
+class ReplayScreen(PanelScreen):
     """The drive screen's panels over one recording; every key is a way through the recording."""
 
     BINDINGS = REPLAY_BINDINGS
@@ -300,47 +294,15 @@ class ReplayScreen(Screen[None]):
         self._heavy_t_s = -math.inf
 
     def compose(self) -> ComposeResult:
-        envelope = self.replay.profile.envelope
-        top, reverse, turn = envelope.top_speed_mps, envelope.top_reverse_speed_mps, envelope.top_turn_rate_radps
-        margin = 0.12 * (top + reverse)
-        yield ReplayTitle(id="title")
-        with Horizontal(id="body"):
-            with Vertical(id="left"):
-                yield SafetyBanner(id="banner")
-                yield RecordedLink(self.replay, id="link")
-                yield LimitPanel(id="limits")
-                yield ReplayKeyCard(id="keys")
-            with Vertical(id="right"):
-                with Vertical(id="gauges"):
-                    yield AxisGauge("speed", "m/s", -reverse - margin, top + margin, id="speed")
-                    yield AxisGauge("turn", "rad/s", -1.12 * turn, 1.12 * turn, id="turn")
-                yield WheelPanel(self.replay.profile, id="wheels")
-                with Horizontal(id="views"):
-                    yield TracePlot((-reverse - margin, top + margin), 1.12 * turn, id="plot")
-                    yield TopView(id="top")
-                yield RecordedEvents(id="events")
-        yield PositionBar(self.replay, id="position")
-        yield ReplayHints(id="hints")
+        yield from self.drive_layout(self.replay.profile, title=ReplayTitle(id="title"),
+                                     left=(RecordedLink(self.replay, id="link"),), keys=ReplayKeyCard(id="keys"),
+                                     events=RecordedEvents(id="events"),
+                                     below=(PositionBar(self.replay, id="position"), ReplayHints(id="hints")))
 
     def on_mount(self) -> None:
-        profile = self.replay.profile
-        titles = {
-            "#link": "link (recorded)", "#limits": "shaping", "#keys": "keys",
-            "#gauges": "request · envelope · output", "#wheels": f"wheels (limit ±{profile.limits.wheel_rate_radps:g} "
-                                                                 "rad/s)",
-            "#plot": "trace", "#top": "top view", "#events": "events (recorded)",
-        }
-        for selector, title in titles.items():
-            self.query_one(selector).border_title = title
+        self.find_panels(self.replay.profile, link_title="link (recorded)", events_title="events (recorded)")
         self.title_bar = self.query_one(ReplayTitle)
-        self.banner = self.query_one(SafetyBanner)
         self.link_panel = self.query_one(RecordedLink)
-        self.limit_panel = self.query_one(LimitPanel)
-        self.speed_gauge = self.query_one("#speed", AxisGauge)
-        self.turn_gauge = self.query_one("#turn", AxisGauge)
-        self.wheel_panel = self.query_one(WheelPanel)
-        self.plot = self.query_one(TracePlot)
-        self.top_view = self.query_one(TopView)
         self.event_log = self.query_one(RecordedEvents)
         self.position = self.query_one(PositionBar)
         self.top_view.source = self.top_view.border_subtitle = (

@@ -70,7 +70,8 @@ def hour_recording(folder: Path) -> Path:
     header, *rows = scene.read_text(encoding="utf-8").splitlines()
     lines = [header, *rows]
     # the repeats start at the first measured row: a run an hour long opens its link once, not every 10 s
-    rows = rows[next(i for i, row in enumerate(rows) if ",," not in row):]
+    measured = header.split(",").index("left_meas_radps")
+    rows = rows[next(i for i, row in enumerate(rows) if row.split(",")[measured]):]
     times = [float(row.split(",", 1)[0]) for row in rows]
     rests = [row.split(",", 1)[1] for row in rows]
     span = times[-1] - times[0] + 0.01
