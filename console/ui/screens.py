@@ -97,9 +97,10 @@ class Overlay(ModalScreen[ResultType]):
             self.call_after_refresh(tick)
 
     def show_state(self, state: str, cause: str | None, detail: str) -> None:
-        """The app's tick: the same words as the main banner."""
-        if self.is_mounted:
-            self.query_one("#overlay-banner", SafetyBanner).show(state, cause, detail)
+        """The app's tick: the same words as the main banner (none while the overlay is being built or taken
+        down: a tick can fall between those steps)."""
+        for banner in self.query("#overlay-banner").results(SafetyBanner):
+            banner.show(state, cause, detail)
 
 
 class HelpScreen(Overlay[None]):
