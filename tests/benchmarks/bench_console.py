@@ -92,12 +92,7 @@ def _console(duration_s: float, folder: Path) -> dict[str, object]:
                            "--speed-step-mps", f"{SPEED_STEP_MPS}", "--turn-step-radps", f"{TURN_STEP_RADPS}"],
                           size=(120, 40), cwd=folder)
     try:
-        console.started(r"DISARMED")
-        console.wait_for(r"telemetry +≤ \d+ ms ago")
-        console.keys("a")
-        console.wait_for(r"ENTER")
-        console.keys("Enter")
-        console.wait_for(r"(?<![A-Z])ARMED(?![A-Z])")
+        console.armed()
         pid = console.pid()
         family = [pid, *_children(pid)]          # the UI process and the loop's own process
         sent: list[float] = []

@@ -118,12 +118,7 @@ def _live_console_cpu(seconds: float) -> dict[str, float]:
     """The drive console on the simulated robot, armed and driving (latched, a speed preset) for `seconds`."""
     console = TmuxConsole(["profiles/wren.toml", "--mode", "latched"], size=(120, 40))
     try:
-        console.started(r"DISARMED")
-        console.wait_for(r"telemetry +≤ \d+ ms ago")
-        console.keys("a")
-        console.wait_for(r"ENTER")
-        console.keys("Enter")
-        console.wait_for(r"(?<![A-Z])ARMED(?![A-Z])")
+        console.armed()
         console.keys("4", "Left")
         time.sleep(1.0)
         pids = _family(console.pid())

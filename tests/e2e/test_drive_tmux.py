@@ -16,12 +16,7 @@ _reason = tmux_missing_reason()
 def test_drive_arms_drives_and_stops_in_a_real_terminal() -> None:
     console = TmuxConsole(["profiles/wren.toml", "--mode", "latched", "--speed-step-mps", "0.05"])
     try:
-        console.started(r"DISARMED")
-        console.wait_for(r"telemetry +≤ \d+ ms ago")         # the simulated robot answers: arming is possible
-        console.keys("a")
-        console.wait_for(r"ENTER")
-        console.keys("Enter")
-        console.wait_for(r"(?<![A-Z])ARMED(?![A-Z])")
+        console.armed()                                       # telemetry first: arming is possible only then
         for _ in range(6):
             console.keys("Up")
         screen = console.wait_for(r"█ out \+0\.30")          # shaped speed reached the six nudges
@@ -43,12 +38,7 @@ def test_drive_arms_drives_and_stops_in_a_real_terminal() -> None:
 def test_quit_while_moving_shows_stopping_until_at_rest_at_80x24() -> None:
     console = TmuxConsole(["profiles/wren.toml", "--mode", "latched"], size=(80, 24))
     try:
-        console.started(r"DISARMED")
-        console.wait_for(r"telemetry +≤ \d+ ms ago")
-        console.keys("a")
-        console.wait_for(r"ENTER")
-        console.keys("Enter")
-        console.wait_for(r"(?<![A-Z])ARMED(?![A-Z])")
+        console.armed()
         console.keys("9")
         console.wait_for(r"█\+0\.[5-9]\d")                      # well under way (narrow gauge)
         console.keys("q")

@@ -54,9 +54,20 @@ class TmuxConsole:
         self.wait_for(pattern, timeout_s)
         width, height = self.size
         for rows in (height - 1, height):
-            subprocess.run([*self.tmux, "resize-window", "-t", self.name, "-x", str(width), "-y", str(rows)], check=True)
+            subprocess.run([*self.tmux, "resize-window", "-t", self.name, "-x", str(width), "-y", str(rows)],
+                           check=True)
             time.sleep(0.3)
         return self.wait_for(pattern, timeout_s)
+
+    def armed(self) -> str:
+        """From the first screen on the simulated robot: wait for its telemetry (arming is possible only then),
+        arm with a, enter, and return the screen once it says ARMED."""
+        self.started(r"DISARMED")
+        self.wait_for(r"telemetry +≤ \d+ ms ago")
+        self.keys("a")
+        self.wait_for(r"ENTER")
+        self.keys("Enter")
+        return self.wait_for(r"(?<![A-Z])ARMED(?![A-Z])")
 
     def keys(self, *keys: str) -> None:
         subprocess.run([*self.tmux, "send-keys", "-t", self.name, *keys], check=True)
