@@ -16,17 +16,17 @@ import math
 import platform
 import threading
 from collections import deque
-from collections.abc import Sequence
+from collections.abc import Collection, Iterable, Mapping, Sequence
 from datetime import UTC, datetime
 from pathlib import Path
-from typing import TYPE_CHECKING, Any
+from typing import TYPE_CHECKING, Any, NoReturn
 
 import numpy
 import serial
 
 from console import __version__
-from console.errors import OutputError
-from console.files import check_stream_target, make_folders, reason, remove_folders, write_atomic
+from console.errors import InputError, OutputError
+from console.files import PLAIN_NUMBER, check_stream_target, make_folders, reason, remove_folders, write_atomic
 from console.links import is_simulated
 
 if TYPE_CHECKING:
@@ -47,6 +47,40 @@ FORMAT = "diffdeck recording 2"
 """2: `cause` and `bound` follow `flags`. Readers take 1 too (without those columns)."""
 FORMATS_READ = ("diffdeck recording 1", FORMAT)
 RECORDINGS_DIR = Path("recordings")
+
+
+class RecordingError(InputError):
+    """A file that is not a usable recording: file, field, value, what is allowed (exit code 2)."""
+
+
+def name_first_bad_cell(path: Path, body: bytes, columns: Sequence[str], *, first_line: int = 2,
+                        checked: Iterable[int] | None = None,
+                        words: Mapping[str, Collection[str]] | None = None) -> NoReturn:
+    """Raise the RecordingError naming the first bad line, field and value of a CSV body: the slow way, used only
+    once a fast reader (numpy) has refused it. `checked`: the column indexes to look at (all by default); `words`:
+    the allowed words of the text columns; every other checked cell is a plain number or empty."""
+    words = words or {}
+    indexes = list(range(len(columns)) if checked is None else checked)
+    for number, raw in enumerate(body.split(b"\n"), start=first_line):
+        if not raw.strip():
+            continue
+        fields = raw.decode("utf-8", "replace").rstrip("\r").split(",")
+        if len(fields) != len(columns):
+            raise RecordingError(str(path), f"line {number}", f"{len(fields)} fields",
+                                 f"{len(columns)} comma-separated fields, as in the header")
+        for index in indexes:
+            name, cell = columns[index], fields[index]
+            allowed_words = words.get(name)
+            if allowed_words is not None:
+                if cell not in allowed_words:
+                    allowed = sorted(word for word in allowed_words if word and word != "nan")
+                    raise RecordingError(str(path), f"line {number}, {name}", cell[:40],
+                                         ("empty or " if "" in allowed_words else "") + "one of " + ", ".join(allowed))
+            elif cell.strip() not in ("", "nan") and not PLAIN_NUMBER.fullmatch(cell):
+                raise RecordingError(str(path), f"line {number}, {name}", cell[:40],
+                                     "a finite number, or empty (or nan) where nothing was measured")
+    raise RecordingError(str(path), "file", str(path),
+                         "a CSV recording numpy can read (this one it cannot; please report it)")
 
 
 def default_path(profile: Profile, now: datetime | None = None) -> Path:

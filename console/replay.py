@@ -38,10 +38,20 @@ from console.core.link import LinkStats
 from console.core.safety import SafetyState, StopCause
 from console.core.step import ENVELOPE_BOUNDS, LIMIT_EVENT_HOLD_S, Event, LoopStats, Snapshot
 from console.errors import InputError
-from console.files import PLAIN_NUMBER, read_input
+from console.files import read_input
 from console.profile import Profile, ProfileError, load_profile, profile_from_data
 from console.protocol import Flags, flag_names
-from console.record import BOUND_COLUMN, CAUSE_COLUMN, COLUMNS, FLAGS_COLUMN, FORMATS_READ, POSE_COLUMNS, sidecar_path
+from console.record import (
+    BOUND_COLUMN,
+    CAUSE_COLUMN,
+    COLUMNS,
+    FLAGS_COLUMN,
+    FORMATS_READ,
+    POSE_COLUMNS,
+    RecordingError,
+    name_first_bad_cell,
+    sidecar_path,
+)
 from shaping.envelope import Bound
 from shaping.odometry import arc_step
 from shaping.shaper import Shaped
@@ -75,10 +85,6 @@ MEASURED = ("left_meas_radps", "right_meas_radps")
 MOMENT_KINDS = ("stop", "fault")
 """What `notable_moments` lists (the report prints a replay command for each)."""
 MOMENTS_LISTED = 20
-
-
-class RecordingError(InputError):
-    """A file that cannot be replayed: file, field, value, what is allowed (exit code 2)."""
 
 
 @dataclass(frozen=True, slots=True)
@@ -232,31 +238,9 @@ def _parse_rows(path: Path, body: bytes, columns: list[str], names: tuple[str, .
     except (ValueError, KeyError, UnicodeDecodeError):
         table = None
     if table is None or (table.size and table.shape[1] != len(use)) or np.isinf(table).any():
-        _first_bad_cell(path, body, columns, first_line)
+        name_first_bad_cell(path, body, columns, first_line=first_line, words=WORD_CODES)
     assert table is not None
     return table
-
-
-def _first_bad_cell(path: Path, body: bytes, columns: list[str], first_line: int) -> None:
-    """Name the first line, field and value the fast reader refused (the slow way, only once it has refused)."""
-    for number, raw in enumerate(body.split(b"\n"), start=first_line):
-        if not raw.strip():
-            continue
-        fields = raw.decode("utf-8", "replace").rstrip("\r").split(",")
-        if len(fields) != len(columns):
-            raise _fail(path, f"line {number}", f"{len(fields)} fields", f"{len(columns)} comma-separated fields, as "
-                                                                         "in the header")
-        for name, cell in zip(columns, fields):
-            words = WORD_CODES.get(name)
-            if words is not None:
-                if cell not in words:
-                    allowed = sorted(word for word in words if word and word != "nan")
-                    raise _fail(path, f"line {number}, {name}", cell[:40], ("empty or " if "" in words else "")
-                                + "one of " + ", ".join(allowed))
-            elif cell.strip() not in ("", "nan") and not PLAIN_NUMBER.fullmatch(cell):
-                raise _fail(path, f"line {number}, {name}", cell[:40],
-                            "a finite number, or empty where nothing was measured")
-    raise _fail(path, "file", str(path), "a CSV recording numpy can read (this one it cannot; please report it)")
 
 
 class Rows:

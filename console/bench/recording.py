@@ -14,18 +14,13 @@ import numpy as np
 
 from console.bench.program import LEVEL_FIELDS, Axis, BoundSegment, Kind, Segment
 from console.bench.run import bench_sidecar_path
-from console.errors import InputError
-from console.files import PLAIN_NUMBER, read_input
-from console.record import COLUMNS, POSE_COLUMNS, sidecar_path
+from console.files import read_input
+from console.record import COLUMNS, POSE_COLUMNS, RecordingError, name_first_bad_cell, sidecar_path
 
 NUMERIC = tuple(c for c in COLUMNS if c != "state")
 MIN_ROWS = 20
 FORMAT_1 = "diffdeck bench 1"
 """The first bench sidecar format: its segments are converted in one place (`_from_format_1`)."""
-
-
-class RecordingError(InputError):
-    """A recording the report cannot use: file, field, value, what is allowed (exit code 2)."""
 
 
 @dataclass(frozen=True, slots=True)
@@ -87,9 +82,9 @@ def read_recording(path: str | Path) -> Recording:
         table = None
     del filled
     if table is None or b"_" in body or np.isinf(table).any():
-        _check_cells(path, body, columns, usecols)
+        name_first_bad_cell(path, body, columns, checked=usecols)
     del body
-    assert table is not None, "_check_cells raises on whatever numpy refused"
+    assert table is not None, "name_first_bad_cell raises on whatever numpy refused"
     if table.shape[0] < MIN_ROWS:
         raise _fail(path, "rows", table.shape[0], f"at least {MIN_ROWS} data rows")
     data = {name: table[:, i].copy() for i, name in enumerate(names)}
@@ -122,23 +117,6 @@ def read_recording(path: str | Path) -> Recording:
             raise _fail(side, name, value, "a number > 0, or left out")
     segments = _segments(path, bench, float(t[0]), float(t[-1]))
     return Recording(path, data, radius, track, top, segments, program, bench)
-
-
-def _check_cells(path: Path, body: bytes, columns: list[str], usecols: list[int]) -> None:
-    """The first bad line, field or value, named (the slow way, only once the fast reader has refused something)."""
-    for number, line in enumerate(body.split(b"\n"), start=2):
-        if not line.strip():
-            continue
-        fields = line.decode("utf-8", "replace").rstrip("\r").split(",")
-        if len(fields) != len(columns):
-            raise _fail(path, f"line {number}", f"{len(fields)} fields", f"{len(columns)} comma-separated fields, "
-                                                                         "as in the header")
-        for index in usecols:
-            cell = fields[index]
-            if cell.strip() not in ("", "nan") and not PLAIN_NUMBER.fullmatch(cell):
-                raise _fail(path, f"line {number}, {columns[index]}", cell[:40],
-                            "a finite number, or empty (or nan) where nothing was measured")
-    raise _fail(path, "file", str(path), "a CSV recording numpy can read (this one it cannot; please report it)")
 
 
 def _segments(path: Path, bench: dict[str, Any] | None, t_first: float, t_last: float) -> tuple[BoundSegment, ...]:
