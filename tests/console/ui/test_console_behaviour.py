@@ -271,3 +271,23 @@ async def test_typed_setpoints_need_latched_mode(rig: Rig) -> None:
         await pilot.pause()
         assert rig.app.screen is rig.app.drive_screen
         assert rig.app.drive_screen.event_log.lines[-1][1] == "typed setpoints need latched mode: m switches"
+
+
+async def test_the_beat_alone_ends_a_released_hold_and_keeps_the_ui_heartbeat() -> None:
+    """Panels refresh at 12.5 Hz; the hold release and the UI heartbeat ride the 20 Hz beat, so with no repaint at
+    all a released key still brings the request to zero well within the deadman time, and the loop sees no UI
+    stall."""
+    rig = make_rig()
+    async with rig.app.run_test(size=SIZE) as pilot:
+        await arm(rig, pilot)
+        await pilot.press("up")
+        rig.advance(0.04)
+        assert rig.snap.shaped.v_req_mps > 0.0
+        beat_s = 0.05
+        cycles = round(beat_s * rig.profile.link.rate_hz)
+        for _ in range(round(rig.app.drive.deadman_s / beat_s)):     # beats only: no tick, no repaint
+            rig.loop.run_cycles(cycles)
+            rig.app.beat()
+        rig.loop.run_cycles(cycles)
+        assert rig.snap.shaped.v_req_mps == 0.0
+        assert rig.snap.state is SafetyState.ARMED                   # released, not stopped by a UI stall
